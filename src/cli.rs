@@ -1,0 +1,239 @@
+//! Command-line definitions (clap derive) and their translation into the library's config
+//! types. Nothing here reads data or computes; `run` calls the library and returns an exit code.
+
+use crate::audit::{self, AuditConfig, DEFAULT_SEED};
+use crate::error::{Error, Result};
+use crate::estimator::Estimator;
+use crate::log::{ColumnSpec, LogReader, Progress, ReadOptions};
+use crate::report::{self, Format};
+use crate::{inspect, output};
+use clap::{Args, Parser, Subcommand, ValueEnum};
+
+/// Exit codes, documented in the README.
+pub mod exit {
+    pub const OK: u8 = 0;
+    pub const CHECK_FAILED: u8 = 1;
+    pub const BAD_INPUT: u8 = 2;
+}
+
+#[derive(Debug, Parser)]
+#[command(
+    name = "gradaudit",
+    version,
+    about = "Audit policy-gradient estimators on recorded rollouts",
+    long_about = "Audit policy-gradient estimators on recorded rollouts.\n\n\
+        gradaudit reads a rollout log (one CSV row per step), forms each estimator's gradient \
+        from the per-step score vectors, resamples whole episodes with a seeded bootstrap, and \
+        reports each estimator's variance, bias against an unbiased reference, MSE, SNR and \
+        effective sample size.\n\n\
+        Exit codes: 0 success, 1 a check failed, 2 bad usage or bad input.",
+    after_help = "Start with `gradaudit inspect LOG` to check how the log was read, then \
+        `gradaudit audit LOG`."
+)]
+pub struct Cli {
+    #[command(subcommand)]
+    pub command: Command,
+}
+
+#[derive(Debug, Subcommand)]
+pub enum Command {
+    /// Summarise a log: episodes, lengths, returns, column roles, warnings
+    Inspect(InspectArgs),
+    /// Compare policy-gradient estimators on a log: variance, bias, MSE, SNR, ESS
+    Audit(AuditArgs),
+}
+
+/// How to read the log (shared by every command).
+#[derive(Debug, Args)]
+pub struct LogArgs {
+    /// Rollout log: CSV with a header row, optionally gzip-compressed; `-` reads stdin
+    pub log: String,
+
+    /// Field delimiter (one ASCII character; `\t` for tab)
+    #[arg(long, default_value = ",", value_name = "CHAR")]
+    pub delimiter: String,
+
+    /// Read role ROLE from column HEADER (repeatable). Roles: episode, step, reward,
+    /// terminated, truncated, value, next_value, q, logp
+    #[arg(long = "col", value_name = "ROLE=HEADER")]
+    pub columns: Vec<String>,
+
+    /// Header prefix of the score-vector columns (score_0, score_1, ...)
+    #[arg(long, default_value = "score_", value_name = "PREFIX")]
+    pub score_prefix: String,
+
+    /// Header prefix of the state-feature columns
+    #[arg(long, default_value = "obs_", value_name = "PREFIX")]
+    pub obs_prefix: String,
+
+    /// Header prefix of the action columns
+    #[arg(long, default_value = "act_", value_name = "PREFIX")]
+    pub act_prefix: String,
+
+    /// No progress bar (it is shown only when stderr is a terminal anyway)
+    #[arg(long, short)]
+    pub quiet: bool,
+}
+
+#[derive(Debug, Clone, Copy, ValueEnum)]
+pub enum InspectFormat {
+    Table,
+    Json,
+}
+
+#[derive(Debug, Args)]
+pub struct InspectArgs {
+    #[command(flatten)]
+    pub log: LogArgs,
+    /// Output format
+    #[arg(long, value_enum, default_value_t = InspectFormat::Table)]
+    pub format: InspectFormat,
+}
+
+#[derive(Debug, Clone, Copy, ValueEnum)]
+pub enum AuditFormat {
+    Table,
+    Json,
+    Csv,
+    Markdown,
+}
+
+#[derive(Debug, Args)]
+pub struct AuditArgs {
+    #[command(flatten)]
+    pub log: LogArgs,
+
+    /// Discount factor gamma of the discounted estimators, in [0, 1]
+    #[arg(long, default_value_t = 0.99)]
+    pub gamma: f64,
+
+    /// Comma list of estimators, e.g. `rtg,gae:0.9,nstep:10`. Default: every estimator the
+    /// log's columns allow (total, rtg, rtg_discounted, mean_baseline, whitened,
+    /// value_baseline, q, advantage_q, td, nstep:1,5,20, gae:0,0.5,0.9,0.95,0.97,1)
+    #[arg(long, value_name = "LIST")]
+    pub estimators: Option<String>,
+
+    /// The unbiased reference that bias is measured against
+    #[arg(long, default_value = "rtg", value_name = "NAME")]
+    pub reference: String,
+
+    /// Bootstrap resamples B (whole episodes drawn with replacement)
+    #[arg(long, default_value_t = 2000, value_name = "B")]
+    pub resamples: usize,
+
+    /// Seed of every random draw; the same seed gives the same report
+    #[arg(long, default_value_t = DEFAULT_SEED)]
+    pub seed: u64,
+
+    /// Confidence level of the percentile intervals
+    #[arg(long, default_value_t = 0.95)]
+    pub confidence: f64,
+
+    /// SNR that `episodes@snr` plans for
+    #[arg(long, default_value_t = 1.0, value_name = "SNR")]
+    pub target_snr: f64,
+
+    /// Random half splits behind cosine_half
+    #[arg(long, default_value_t = 200, value_name = "N")]
+    pub splits: usize,
+
+    /// Output format
+    #[arg(long, value_enum, default_value_t = AuditFormat::Table)]
+    pub format: AuditFormat,
+
+    /// Write the report here (atomically) instead of stdout
+    #[arg(long, value_name = "FILE", default_value = "-")]
+    pub out: String,
+}
+
+impl LogArgs {
+    pub fn read_options(&self) -> Result<ReadOptions> {
+        let delimiter = match self.delimiter.as_str() {
+            "\\t" | "tab" => b'\t',
+            d if d.len() == 1 && d.is_ascii() => d.as_bytes()[0],
+            d => {
+                return Err(Error::usage(format!(
+                    "--delimiter '{d}': give one ASCII character (or \\t for tab)"
+                )));
+            }
+        };
+        let mut columns = ColumnSpec::default();
+        for c in &self.columns {
+            columns
+                .remap(c)
+                .map_err(|e| Error::usage(format!("--col {e}")))?;
+        }
+        columns.score_prefix = self.score_prefix.clone();
+        columns.obs_prefix = self.obs_prefix.clone();
+        columns.act_prefix = self.act_prefix.clone();
+        Ok(ReadOptions {
+            delimiter,
+            columns,
+            progress: if self.quiet {
+                Progress::Hidden
+            } else {
+                Progress::Auto
+            },
+        })
+    }
+
+    pub fn open(&self) -> Result<LogReader> {
+        LogReader::open(&self.log, &self.read_options()?)
+    }
+}
+
+impl AuditArgs {
+    pub fn config(&self) -> Result<AuditConfig> {
+        let estimators = match &self.estimators {
+            Some(list) => Some(
+                Estimator::parse_list(list)
+                    .map_err(|e| Error::usage(format!("--estimators {e}")))?,
+            ),
+            None => None,
+        };
+        let reference = Estimator::parse(&self.reference)
+            .map_err(|e| Error::usage(format!("--reference {e}")))?;
+        let cfg = AuditConfig {
+            gamma: self.gamma,
+            estimators,
+            reference,
+            resamples: self.resamples,
+            seed: self.seed,
+            confidence: self.confidence,
+            target_snr: self.target_snr,
+            splits: self.splits,
+        };
+        cfg.validate()?;
+        Ok(cfg)
+    }
+
+    fn format(&self) -> Format {
+        match self.format {
+            AuditFormat::Table => Format::Table,
+            AuditFormat::Json => Format::Json,
+            AuditFormat::Csv => Format::Csv,
+            AuditFormat::Markdown => Format::Markdown,
+        }
+    }
+}
+
+/// Runs a parsed command line; returns the exit code.
+pub fn run(cli: Cli) -> Result<u8> {
+    match cli.command {
+        Command::Inspect(a) => {
+            let report = inspect::run(a.log.open()?)?;
+            let text = match a.format {
+                InspectFormat::Table => report::inspect::render_text(&report),
+                InspectFormat::Json => report::inspect::render_json(&report),
+            };
+            output::write("-", &text)?;
+        }
+        Command::Audit(a) => {
+            let cfg = a.config()?;
+            output::check_writable(&a.out)?;
+            let report = audit::run(a.log.open()?, &cfg)?;
+            output::write(&a.out, &report::render(&report, a.format()))?;
+        }
+    }
+    Ok(exit::OK)
+}

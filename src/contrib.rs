@@ -1,0 +1,142 @@
+//! Per-episode contributions: each episode is reduced to one row of sufficient statistics, from
+//! which every estimator's batch gradient under any episode weighting is an exact function of
+//! the weighted mean row. The episode itself is dropped afterwards.
+//!
+//! Row layout, for L per-episode (linear) estimators and score dimension d:
+//! `[g_1 (d) .. g_L (d) | S (d) | H (d) | A | Q | T]` where g_k = sum_t Psi_kt s_t, and the
+//! auxiliary block (present only when a batch-dependent estimator is planned) holds
+//! S = sum_t G_t s_t, H = sum_t s_t, A = sum_t G_t, Q = sum_t G_t^2 and T = episode length.
+//! With weights w: b(w) = sum w A / sum w T, and the mean-baseline gradient is
+//! (sum w S - b sum w H) / sum w; whitening divides it by sd(w) = sqrt(sum w Q / sum w T - b^2).
+
+use crate::episode::Episode;
+use crate::estimator::{Estimator, Scratch, scan};
+
+/// Why a gradient came out as it did, when that needs saying.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum GradNote {
+    Ok,
+    /// Whitening with zero spread of returns: the gradient is taken as zero.
+    ConstantReturns,
+}
+
+/// The contribution layout for a fixed list of estimators, score dimension and gamma.
+#[derive(Debug, Clone)]
+pub struct Plan {
+    pub estimators: Vec<Estimator>,
+    pub gamma: f64,
+    pub d: usize,
+    /// Column offset of each estimator's per-episode gradient, or None for batch-dependent.
+    offsets: Vec<Option<usize>>,
+    /// Start of the auxiliary block, when present.
+    aux: Option<usize>,
+    width: usize,
+}
+
+impl Plan {
+    pub fn new(estimators: Vec<Estimator>, gamma: f64, d: usize) -> Plan {
+        let mut next = 0;
+        let offsets = estimators
+            .iter()
+            .map(|e| {
+                (!e.batch_dependent()).then(|| {
+                    next += d;
+                    next - d
+                })
+            })
+            .collect();
+        let aux = estimators
+            .iter()
+            .any(|e| e.batch_dependent())
+            .then_some(next);
+        let width = next + if aux.is_some() { 2 * d + 3 } else { 0 };
+        Plan {
+            estimators,
+            gamma,
+            d,
+            offsets,
+            aux,
+            width,
+        }
+    }
+
+    /// Length of one contribution row.
+    pub fn width(&self) -> usize {
+        self.width
+    }
+
+    /// Writes the episode's contribution row into `row` (length [`Plan::width`]).
+    pub fn contribute(&self, ep: &Episode, work: &mut Work, row: &mut [f64]) {
+        debug_assert_eq!(row.len(), self.width);
+        debug_assert_eq!(ep.score_dim, self.d);
+        row.fill(0.0);
+        let d = self.d;
+        scan::discounted_returns(&ep.rewards, self.gamma, &mut work.g);
+        for (e, off) in self.estimators.iter().zip(&self.offsets) {
+            let Some(off) = *off else { continue };
+            e.psi(ep, self.gamma, &work.g, &mut work.scratch, &mut work.psi);
+            accumulate(&work.psi, &ep.scores, d, &mut row[off..off + d]);
+        }
+        if let Some(aux) = self.aux {
+            accumulate(&work.g, &ep.scores, d, &mut row[aux..aux + d]);
+            work.psi.clear();
+            work.psi.resize(ep.len(), 1.0);
+            accumulate(&work.psi, &ep.scores, d, &mut row[aux + d..aux + 2 * d]);
+            row[aux + 2 * d] = work.g.iter().sum();
+            row[aux + 2 * d + 1] = work.g.iter().map(|g| g * g).sum();
+            row[aux + 2 * d + 2] = ep.len() as f64;
+        }
+    }
+
+    /// Estimator k's batch gradient from a weighted mean row (sum_i w_i row_i / sum_i w_i).
+    pub fn gradient(&self, k: usize, mean: &[f64], out: &mut [f64]) -> GradNote {
+        let d = self.d;
+        if let Some(off) = self.offsets[k] {
+            out.copy_from_slice(&mean[off..off + d]);
+            return GradNote::Ok;
+        }
+        let aux = self
+            .aux
+            .expect("batch-dependent estimators have the auxiliary block");
+        let (s, h) = (&mean[aux..aux + d], &mean[aux + d..aux + 2 * d]);
+        let (a, q, t) = (
+            mean[aux + 2 * d],
+            mean[aux + 2 * d + 1],
+            mean[aux + 2 * d + 2],
+        );
+        let b = a / t;
+        for j in 0..d {
+            out[j] = s[j] - b * h[j];
+        }
+        if self.estimators[k] == Estimator::Whitened {
+            let var = q / t - b * b;
+            // Relative threshold: with constant returns var is rounding noise around 0, and
+            // dividing by its square root would blow that noise up into a huge gradient.
+            let floor = 1e-24 * (q / t).max(f64::MIN_POSITIVE);
+            if var.is_nan() || var <= floor {
+                out.fill(0.0);
+                return GradNote::ConstantReturns;
+            }
+            let sd = var.sqrt();
+            out.iter_mut().for_each(|x| *x /= sd);
+        }
+        GradNote::Ok
+    }
+}
+
+/// out += sum_t psi_t s_t, with scores row-major T x d.
+fn accumulate(psi: &[f64], scores: &[f64], d: usize, out: &mut [f64]) {
+    for (p, s) in psi.iter().zip(scores.chunks_exact(d)) {
+        for (o, x) in out.iter_mut().zip(s) {
+            *o += p * x;
+        }
+    }
+}
+
+/// Scratch buffers reused across episodes.
+#[derive(Debug, Default)]
+pub struct Work {
+    g: Vec<f64>,
+    psi: Vec<f64>,
+    scratch: Scratch,
+}

@@ -1,0 +1,88 @@
+//! The episode model: one finished trajectory with its per-step arrays and how it ended.
+
+/// How an episode ended, which decides the value after its last step (V_T).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum End {
+    /// An absorbing state was reached: V_T = 0.
+    Terminated,
+    /// Cut by a time limit or by the end of the log. `bootstrap` is V(s_T) from the last row's
+    /// next_value; when absent the tail value is taken as 0 (and a warning is counted).
+    Truncated { bootstrap: Option<f64> },
+}
+
+/// One finished episode. Per-step vectors are stored row-major (`T x dim`).
+#[derive(Debug, Clone, PartialEq)]
+pub struct Episode {
+    pub id: String,
+    /// Line of its first row in the log, for messages.
+    pub first_line: u64,
+    pub rewards: Vec<f64>,
+    pub values: Option<Vec<f64>>,
+    pub q: Option<Vec<f64>>,
+    pub logp: Option<Vec<f64>>,
+    pub score_dim: usize,
+    pub scores: Vec<f64>,
+    pub obs_dim: usize,
+    pub obs: Vec<f64>,
+    pub act_dim: usize,
+    pub act: Vec<f64>,
+    pub end: End,
+}
+
+impl Episode {
+    /// An empty episode with the given per-step layout.
+    pub fn new(id: String, first_line: u64, layout: &Layout) -> Self {
+        Episode {
+            id,
+            first_line,
+            rewards: Vec::new(),
+            values: layout.value.then(Vec::new),
+            q: layout.q.then(Vec::new),
+            logp: layout.logp.then(Vec::new),
+            score_dim: layout.score_dim,
+            scores: Vec::new(),
+            obs_dim: layout.obs_dim,
+            obs: Vec::new(),
+            act_dim: layout.act_dim,
+            act: Vec::new(),
+            end: End::Terminated,
+        }
+    }
+
+    pub fn len(&self) -> usize {
+        self.rewards.len()
+    }
+
+    pub fn is_empty(&self) -> bool {
+        self.rewards.is_empty()
+    }
+
+    /// The score vector of step t.
+    pub fn score(&self, t: usize) -> &[f64] {
+        &self.scores[t * self.score_dim..(t + 1) * self.score_dim]
+    }
+
+    /// V_T: the value after the last step (0 when terminated or without a bootstrap value).
+    pub fn tail_value(&self) -> f64 {
+        match self.end {
+            End::Terminated => 0.0,
+            End::Truncated { bootstrap } => bootstrap.unwrap_or(0.0),
+        }
+    }
+
+    /// Sum of rewards (the undiscounted return).
+    pub fn total_reward(&self) -> f64 {
+        self.rewards.iter().sum()
+    }
+}
+
+/// Which optional per-step arrays an episode carries, and the vector widths.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub struct Layout {
+    pub value: bool,
+    pub q: bool,
+    pub logp: bool,
+    pub score_dim: usize,
+    pub obs_dim: usize,
+    pub act_dim: usize,
+}

@@ -1,0 +1,62 @@
+//! Opening a log: a path, a gzip-compressed path (detected by its magic bytes, whatever its
+//! name) or `-` for standard input, with an optional progress bar on the raw bytes read.
+
+use crate::error::{Error, Result};
+use indicatif::{ProgressBar, ProgressStyle};
+use std::fs::File;
+use std::io::{self, BufRead, BufReader, IsTerminal, Read};
+
+/// Name used in messages for standard input.
+pub const STDIN_NAME: &str = "<stdin>";
+
+/// How the progress of reading is shown.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Progress {
+    /// A bar on stderr, only if stderr is a terminal.
+    Auto,
+    Hidden,
+}
+
+/// Display name for a path as given on the command line.
+pub fn display_name(path: &str) -> String {
+    if path == "-" {
+        STDIN_NAME.to_string()
+    } else {
+        path.to_string()
+    }
+}
+
+/// Opens `path` for reading, decompressing gzip transparently.
+pub fn open(path: &str, progress: Progress) -> Result<(Box<dyn Read>, Option<ProgressBar>)> {
+    let name = display_name(path);
+    let (raw, len): (Box<dyn Read>, Option<u64>) = if path == "-" {
+        (Box::new(io::stdin().lock()), None)
+    } else {
+        let file = File::open(path).map_err(|e| Error::io(&name, e))?;
+        let len = file.metadata().ok().map(|m| m.len());
+        (Box::new(file), len)
+    };
+    let bar = match progress {
+        Progress::Auto if io::stderr().is_terminal() && len.is_some_and(|l| l > 8 << 20) => {
+            let bar = ProgressBar::new(len.unwrap_or(0));
+            bar.set_style(
+                ProgressStyle::with_template("reading {bytes}/{total_bytes} {wide_bar} {eta}")
+                    .unwrap_or_else(|_| ProgressStyle::default_bar()),
+            );
+            Some(bar)
+        }
+        _ => None,
+    };
+    let counted: Box<dyn Read> = match &bar {
+        Some(bar) => Box::new(bar.wrap_read(raw)),
+        None => raw,
+    };
+    let mut buffered = BufReader::with_capacity(1 << 16, counted);
+    let magic = buffered.fill_buf().map_err(|e| Error::io(&name, e))?;
+    let reader: Box<dyn Read> = if magic.starts_with(&[0x1f, 0x8b]) {
+        Box::new(flate2::bufread::MultiGzDecoder::new(buffered))
+    } else {
+        Box::new(buffered)
+    };
+    Ok((reader, bar))
+}

@@ -1,0 +1,30 @@
+//! CSV rendering of an audit: one row per estimator, full precision, empty cells where a figure
+//! is undefined.
+
+use super::AuditReport;
+use super::columns::{COLUMNS, Cell};
+
+pub fn render(r: &AuditReport) -> String {
+    let mut w = ::csv::Writer::from_writer(Vec::new());
+    let mut header: Vec<&str> = COLUMNS.iter().map(|c| c.key).collect();
+    header[0] = "estimator";
+    header.push("reference");
+    header.push("notes");
+    w.write_record(&header).expect("writing to memory");
+    for row in &r.estimators {
+        let mut cells: Vec<String> = COLUMNS
+            .iter()
+            .map(|c| match (c.cell)(row) {
+                Cell::Num(Some(x)) => format!("{x}"),
+                Cell::Count(Some(n)) => n.to_string(),
+                Cell::Num(None) | Cell::Count(None) => String::new(),
+                Cell::Text(t) => t,
+            })
+            .collect();
+        cells[0] = row.name.clone();
+        cells.push(row.reference.to_string());
+        cells.push(row.notes.join("; "));
+        w.write_record(&cells).expect("writing to memory");
+    }
+    String::from_utf8(w.into_inner().expect("in-memory writer")).expect("csv of UTF-8 text")
+}

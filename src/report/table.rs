@@ -1,0 +1,83 @@
+//! Terminal table of an audit: header lines, warnings, one row per estimator, the verdict.
+
+use super::AuditReport;
+use super::columns::{COLUMNS, Cell};
+use comfy_table::{Table, presets};
+
+/// A number for people: 4 significant digits, scientific outside [1e-3, 1e5).
+pub fn num(x: f64) -> String {
+    if x == 0.0 {
+        return "0".into();
+    }
+    if !x.is_finite() {
+        return "n/a".into();
+    }
+    let a = x.abs();
+    if (1e-3..1e5).contains(&a) {
+        let digits = (3 - a.log10().floor() as i32).max(0) as usize;
+        format!("{x:.digits$}")
+    } else {
+        format!("{x:.3e}")
+    }
+}
+
+/// A cell for people; undefined figures show as a dash (their reason is in the notes).
+pub fn cell_text(cell: Cell) -> String {
+    match cell {
+        Cell::Num(Some(x)) => num(x),
+        Cell::Count(Some(n)) => n.to_string(),
+        Cell::Num(None) | Cell::Count(None) => "-".into(),
+        Cell::Text(t) => t,
+    }
+}
+
+/// The lines above the table: what was audited and how.
+pub fn preamble(r: &AuditReport) -> Vec<String> {
+    let i = &r.input;
+    let s = &r.settings;
+    vec![
+        format!("gradaudit audit of {}", i.file),
+        format!(
+            "  {} episodes, {} steps ({} terminated, {} truncated), score dimension {}",
+            i.episodes, i.steps, i.terminated, i.truncated, i.score_dim
+        ),
+        format!(
+            "  gamma {}, {} resamples, seed {}, reference {}, {}% intervals, target snr {}",
+            s.gamma,
+            s.resamples,
+            s.seed,
+            s.reference,
+            s.confidence * 100.0,
+            s.target_snr
+        ),
+    ]
+}
+
+pub fn render(r: &AuditReport) -> String {
+    let mut out = preamble(r).join("\n");
+    out.push('\n');
+    if !r.warnings.is_empty() {
+        out.push_str("warnings:\n");
+        for line in r.warnings.lines() {
+            out.push_str(&format!("  - {line}\n"));
+        }
+    }
+    let mut table = Table::new();
+    table.load_style(presets::UTF8_BORDERS_ONLY);
+    table.set_header(COLUMNS.iter().map(|c| c.title));
+    for row in &r.estimators {
+        table.add_row(COLUMNS.iter().map(|c| cell_text((c.cell)(row))));
+    }
+    out.push_str(&table.to_string());
+    out.push('\n');
+    for row in r.estimators.iter().filter(|row| !row.notes.is_empty()) {
+        for note in &row.notes {
+            out.push_str(&format!("note ({}): {note}\n", row.name));
+        }
+    }
+    for s in &r.skipped {
+        out.push_str(&format!("skipped {}: {}\n", s.name, s.reason));
+    }
+    out.push_str(&format!("verdict: {}\n", r.verdict.text));
+    out
+}

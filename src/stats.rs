@@ -1,0 +1,254 @@
+//! Statistics of each estimator's batch gradient from the bootstrap replicates: variance trace,
+//! paired squared bias against the reference with the noise floor removed, MSE, SNR, ESS, the
+//! half-split cosine, batch-size planning and percentile intervals. Undefined figures are
+//! `None` with a note saying why, never NaN.
+
+use crate::contrib::{GradNote, Plan};
+use ndarray::{Array3, ArrayView2};
+
+/// What the statistics need besides the data.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct StatsConfig {
+    /// Episodes in the log (N).
+    pub episodes: usize,
+    /// Two-sided confidence level of the percentile intervals, in (0, 1).
+    pub confidence: f64,
+    /// SNR the planning figure aims for.
+    pub target_snr: f64,
+}
+
+/// A two-sided percentile interval.
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
+pub struct Interval {
+    pub low: f64,
+    pub high: f64,
+}
+
+/// Everything reported for one estimator.
+#[derive(Debug, Clone, PartialEq)]
+pub struct EstimatorStats {
+    pub gradient: Vec<f64>,
+    pub gradient_norm: f64,
+    pub gradient_norm_interval: Interval,
+    pub variance: f64,
+    pub bias_sq: f64,
+    pub bias_norm_interval: Interval,
+    pub mse: f64,
+    pub snr: Option<f64>,
+    pub ess: Option<f64>,
+    pub cosine_half: Option<f64>,
+    pub cosine_half_interval: Option<Interval>,
+    pub episodes_for_snr: Option<u64>,
+    /// The bias alone keeps the SNR below the target at any batch size.
+    pub bias_limited: bool,
+    pub notes: Vec<String>,
+}
+
+/// Statistics shared by all estimators: the reference's signal.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Signal {
+    /// max(0, ||g_ref||^2 - V_ref): the squared norm of the reference gradient, noise removed.
+    pub signal: f64,
+    pub reference_variance: f64,
+}
+
+/// Computes every estimator's statistics. `point` is the mean contribution row over all
+/// episodes, `replicates` one bootstrap mean row per replicate, and `halves` the mean rows of
+/// the half splits, paired as rows (2s, 2s + 1).
+pub fn summarise(
+    plan: &Plan,
+    reference: usize,
+    point: &[f64],
+    replicates: ArrayView2<f64>,
+    halves: ArrayView2<f64>,
+    cfg: &StatsConfig,
+) -> (Vec<EstimatorStats>, Signal) {
+    let k_count = plan.estimators.len();
+    let d = plan.d;
+    let grads = |rows: ArrayView2<f64>| -> (Array3<f64>, Vec<usize>) {
+        let mut g = Array3::<f64>::zeros((rows.nrows(), k_count, d));
+        let mut constant = vec![0usize; k_count];
+        for (r, row) in rows.outer_iter().enumerate() {
+            let row = row.to_vec();
+            for k in 0..k_count {
+                let mut out = vec![0.0; d];
+                if plan.gradient(k, &row, &mut out) == GradNote::ConstantReturns {
+                    constant[k] += 1;
+                }
+                for j in 0..d {
+                    g[[r, k, j]] = out[j];
+                }
+            }
+        }
+        (g, constant)
+    };
+    let (rep, rep_constant) = grads(replicates);
+    let (half, _) = grads(halves);
+    let b_count = rep.shape()[0] as f64;
+    let mut points = vec![vec![0.0; d]; k_count];
+    let mut point_constant = vec![false; k_count];
+    for (k, p) in points.iter_mut().enumerate() {
+        point_constant[k] = plan.gradient(k, point, p) == GradNote::ConstantReturns;
+    }
+
+    // Variance trace of a set of replicate vectors given by f(b, j).
+    let var_trace = |f: &dyn Fn(usize, usize) -> f64| -> f64 {
+        (0..d)
+            .map(|j| {
+                let mean = (0..rep.shape()[0]).map(|b| f(b, j)).sum::<f64>() / b_count;
+                (0..rep.shape()[0])
+                    .map(|b| (f(b, j) - mean).powi(2))
+                    .sum::<f64>()
+                    / (b_count - 1.0)
+            })
+            .sum()
+    };
+    let norm = |v: &mut dyn Iterator<Item = f64>| v.map(|x| x * x).sum::<f64>().sqrt();
+    let alpha = 1.0 - cfg.confidence;
+    let interval = |mut xs: Vec<f64>| -> Interval {
+        xs.sort_by(f64::total_cmp);
+        Interval {
+            low: percentile(&xs, alpha / 2.0),
+            high: percentile(&xs, 1.0 - alpha / 2.0),
+        }
+    };
+
+    let v_ref = var_trace(&|b, j| rep[[b, reference, j]]);
+    let ref_sq: f64 = points[reference].iter().map(|x| x * x).sum();
+    let signal = (ref_sq - v_ref).max(0.0);
+    let n = cfg.episodes as f64;
+
+    let stats = (0..k_count)
+        .map(|k| {
+            let mut notes = Vec::new();
+            let variance = var_trace(&|b, j| rep[[b, k, j]]);
+            let v_diff = var_trace(&|b, j| rep[[b, k, j]] - rep[[b, reference, j]]);
+            let dist_sq: f64 = points[k]
+                .iter()
+                .zip(&points[reference])
+                .map(|(a, b)| (a - b).powi(2))
+                .sum();
+            let bias_sq = (dist_sq - v_diff).max(0.0);
+            let mse = bias_sq + variance;
+            let gradient_norm = norm(&mut points[k].iter().copied());
+            let norms: Vec<f64> = (0..rep.shape()[0])
+                .map(|b| norm(&mut (0..d).map(|j| rep[[b, k, j]])))
+                .collect();
+            let bias_norms: Vec<f64> = (0..rep.shape()[0])
+                .map(|b| norm(&mut (0..d).map(|j| rep[[b, k, j]] - rep[[b, reference, j]])))
+                .collect();
+
+            let (snr, ess) = if mse > 0.0 {
+                let snr = if signal > 0.0 {
+                    Some(signal / mse)
+                } else {
+                    notes.push(
+                        "snr undefined: the reference gradient is not distinguishable from its \
+                         own noise (zero signal)"
+                            .to_string(),
+                    );
+                    None
+                };
+                (snr, Some(n * v_ref / mse))
+            } else {
+                notes.push(
+                    "snr and ess undefined: this estimator's gradient has zero error (it is \
+                     constant across resamples and equal to the reference)"
+                        .to_string(),
+                );
+                (None, None)
+            };
+
+            let threshold = signal / cfg.target_snr;
+            let bias_limited = signal > 0.0 && threshold <= bias_sq;
+            let episodes_for_snr = if signal == 0.0 {
+                notes.push("episodes_for_snr undefined: zero signal".to_string());
+                None
+            } else if bias_limited {
+                notes.push(format!(
+                    "bias-limited: the squared bias alone ({bias_sq:.3e}) keeps snr below {} \
+                     at any batch size",
+                    cfg.target_snr
+                ));
+                None
+            } else {
+                let need = n * variance / (threshold - bias_sq);
+                Some((need.ceil() as u64).max(1))
+            };
+
+            let mut cosines = Vec::new();
+            for s in 0..half.shape()[0] / 2 {
+                let (a, b) = (2 * s, 2 * s + 1);
+                let dot: f64 = (0..d).map(|j| half[[a, k, j]] * half[[b, k, j]]).sum();
+                let na = norm(&mut (0..d).map(|j| half[[a, k, j]]));
+                let nb = norm(&mut (0..d).map(|j| half[[b, k, j]]));
+                if na > 0.0 && nb > 0.0 {
+                    cosines.push((dot / (na * nb)).clamp(-1.0, 1.0));
+                }
+            }
+            let (cosine_half, cosine_half_interval) = if cosines.is_empty() {
+                notes.push("cosine_half undefined: the half-batch gradients are zero".into());
+                (None, None)
+            } else {
+                let mean = cosines.iter().sum::<f64>() / cosines.len() as f64;
+                (Some(mean), Some(interval(cosines)))
+            };
+            if point_constant[k] || rep_constant[k] > 0 {
+                notes.push(format!(
+                    "returns are constant in {} of {} resamples: whitening has no spread to \
+                     divide by, its gradient is taken as zero there",
+                    rep_constant[k] + usize::from(point_constant[k]),
+                    rep.shape()[0] + 1
+                ));
+            }
+            EstimatorStats {
+                gradient: points[k].clone(),
+                gradient_norm,
+                gradient_norm_interval: interval(norms),
+                variance,
+                bias_sq,
+                bias_norm_interval: interval(bias_norms),
+                mse,
+                snr,
+                ess,
+                cosine_half,
+                cosine_half_interval,
+                episodes_for_snr,
+                bias_limited,
+                notes,
+            }
+        })
+        .collect();
+    (
+        stats,
+        Signal {
+            signal,
+            reference_variance: v_ref,
+        },
+    )
+}
+
+/// Linear-interpolation percentile of sorted data (the "type 7" rule of Hyndman and Fan 1996).
+pub fn percentile(sorted: &[f64], p: f64) -> f64 {
+    if sorted.is_empty() {
+        return 0.0;
+    }
+    let h = (sorted.len() - 1) as f64 * p.clamp(0.0, 1.0);
+    let lo = h.floor() as usize;
+    let hi = (lo + 1).min(sorted.len() - 1);
+    sorted[lo] + (h - lo as f64) * (sorted[hi] - sorted[lo])
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    // Hyndman and Fan (1996) type 7 is R's default quantile(): quantile(1:5, 0.1) = 1.4.
+    #[test]
+    fn percentile_type_7() {
+        let x = [1.0, 2.0, 3.0, 4.0, 5.0];
+        assert!((percentile(&x, 0.1) - 1.4).abs() < 1e-12);
+        assert_eq!(percentile(&x, 0.5), 3.0);
+        assert_eq!(percentile(&x, 1.0), 5.0);
+    }
+}

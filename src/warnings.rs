@@ -1,0 +1,76 @@
+//! Non-fatal findings collected while reading and analysing a log. Each kind is counted and
+//! shown once, with its first occurrence, in every report format.
+
+use serde::Serialize;
+use std::collections::BTreeMap;
+
+/// One kind of finding with how often it occurred.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Warning {
+    /// Stable machine-readable code, e.g. `truncated_without_bootstrap`.
+    pub code: &'static str,
+    /// Human sentence describing the finding and its consequence.
+    pub message: String,
+    pub count: u64,
+    /// Where it was first seen (episode id and line), when that helps.
+    pub first: Option<String>,
+}
+
+#[derive(Debug, Clone, Default, PartialEq, Serialize)]
+#[serde(transparent)]
+pub struct Warnings {
+    items: BTreeMap<&'static str, Warning>,
+}
+
+impl Warnings {
+    /// Counts one occurrence; the message and location of the first occurrence are kept.
+    pub fn add(&mut self, code: &'static str, message: impl Into<String>, first: Option<String>) {
+        self.items
+            .entry(code)
+            .and_modify(|w| w.count += 1)
+            .or_insert_with(|| Warning {
+                code,
+                message: message.into(),
+                count: 1,
+                first,
+            });
+    }
+
+    pub fn iter(&self) -> impl Iterator<Item = &Warning> {
+        self.items.values()
+    }
+
+    pub fn count(&self, code: &str) -> u64 {
+        self.items.get(code).map_or(0, |w| w.count)
+    }
+
+    pub fn is_empty(&self) -> bool {
+        self.items.is_empty()
+    }
+
+    pub fn extend(&mut self, other: &Warnings) {
+        for w in other.iter() {
+            self.items
+                .entry(w.code)
+                .and_modify(|mine| mine.count += w.count)
+                .or_insert_with(|| w.clone());
+        }
+    }
+
+    /// One line per warning, for text reports.
+    pub fn lines(&self) -> Vec<String> {
+        self.iter()
+            .map(|w| {
+                let times = if w.count == 1 {
+                    "1 time".to_string()
+                } else {
+                    format!("{} times", w.count)
+                };
+                match &w.first {
+                    Some(first) => format!("{} ({times}; first: {first})", w.message),
+                    None => format!("{} ({times})", w.message),
+                }
+            })
+            .collect()
+    }
+}
