@@ -260,3 +260,6 @@ pub fn run(mut reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
         warnings,
     })
 }
+
+#[cfg(test)]
+mod tests;

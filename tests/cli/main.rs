@@ -1,0 +1,7 @@
+//! Command-line tests: one binary, one module per feature.
+
+mod util;
+
+mod audit;
+mod bad_input;
+mod inspect;

@@ -1,0 +1,58 @@
+//! Test helpers: a temporary folder per test and a command builder for the binary.
+
+use assert_cmd::Command;
+use std::io::Write;
+use std::path::PathBuf;
+
+pub struct Dir {
+    pub tmp: tempfile::TempDir,
+}
+
+impl Dir {
+    pub fn new(name: &str) -> Dir {
+        Dir {
+            tmp: tempfile::Builder::new()
+                .prefix(&format!("gradaudit-{name}-"))
+                .tempdir()
+                .expect("temp dir"),
+        }
+    }
+
+    pub fn path(&self, file: &str) -> PathBuf {
+        self.tmp.path().join(file)
+    }
+
+    pub fn write(&self, file: &str, bytes: &[u8]) -> String {
+        let p = self.path(file);
+        std::fs::write(&p, bytes).expect("write fixture");
+        p.to_string_lossy().into_owned()
+    }
+
+    pub fn write_gz(&self, file: &str, bytes: &[u8]) -> String {
+        let p = self.path(file);
+        let f = std::fs::File::create(&p).expect("create");
+        let mut gz = flate2::write::GzEncoder::new(f, flate2::Compression::default());
+        gz.write_all(bytes).expect("gzip");
+        gz.finish().expect("gzip finish");
+        p.to_string_lossy().into_owned()
+    }
+}
+
+pub fn gradaudit() -> Command {
+    Command::cargo_bin("gradaudit").expect("binary built")
+}
+
+/// The repository's demo log of this name.
+pub fn demo(name: &str) -> String {
+    format!("{}/demo-data/{name}", env!("CARGO_MANIFEST_DIR"))
+}
+
+/// Runs the binary and returns (exit code, stdout, stderr).
+pub fn run(args: &[&str]) -> (i32, String, String) {
+    let out = gradaudit().args(args).output().expect("runs");
+    (
+        out.status.code().unwrap_or(-1),
+        String::from_utf8_lossy(&out.stdout).into_owned(),
+        String::from_utf8_lossy(&out.stderr).into_owned(),
+    )
+}
