@@ -2,7 +2,7 @@
 //!
 //! * `rover`: a docking rover. State p in R^2 (offset from the dock), action u in R^2 (a force)
 //!   from a linear-Gaussian policy u ~ N(W phi(p) + c, diag(sigma^2)), quadratic cost, a time
-//!   limit that truncates episodes, docking (|p| < 0.1) that terminates them, a deliberately
+//!   limit that truncates episodes, docking (|p| < 0.1 by default) that terminates them, a deliberately
 //!   imperfect recorded critic, and exact score columns for theta = (W row-major, c, log sigma).
 //! * `diverter`: a parcel diverter gate. Each step one parcel arrives; a logistic policy on its
 //!   features decides divert (1) or pass (0). Heavy parcels belong in the divert bin (+1 when
@@ -50,6 +50,10 @@ struct Args {
     /// Output CSV path (`-` for stdout)
     #[arg(long)]
     out: String,
+    /// Rover: docking radius that ends an episode (0 disables docking, so every episode runs to
+    /// the time limit: used for benchmark logs of exact size)
+    #[arg(long, default_value_t = 0.1)]
+    dock_radius: f64,
     /// Also write the policy parameters as JSON here
     #[arg(long)]
     policy_out: Option<String>,
@@ -151,7 +155,7 @@ fn rover(a: &Args, rng: &mut ChaCha8Rng, out: &mut Out) -> std::io::Result<serde
                 q6(p[0] + dt * u[0] + 0.02 * normal(rng)),
                 q6(p[1] + dt * u[1] + 0.02 * normal(rng)),
             ];
-            let docked = (next[0] * next[0] + next[1] * next[1]).sqrt() < 0.1;
+            let docked = (next[0] * next[0] + next[1] * next[1]).sqrt() < a.dock_radius;
             let mut reward = -(p[0] * p[0] + p[1] * p[1]) - 0.1 * (u[0] * u[0] + u[1] * u[1]);
             if docked {
                 reward += 10.0;

@@ -6,6 +6,10 @@
 use crate::contrib::{GradNote, Plan};
 use ndarray::{Array3, ArrayView2};
 
+/// Threshold on bias_z for calling a bias detected: about a one-sided 2.3% false-alarm rate
+/// under the normal approximation (common practice, no single source).
+pub const BIAS_Z: f64 = 2.0;
+
 /// What the statistics need besides the data.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct StatsConfig {
@@ -32,6 +36,10 @@ pub struct EstimatorStats {
     pub gradient_norm_interval: Interval,
     pub variance: f64,
     pub bias_sq: f64,
+    /// How many null standard deviations ||g_k - g_ref||^2 lies above its no-bias mean.
+    pub bias_z: Option<f64>,
+    /// bias_z >= [`BIAS_Z`]: the bias is distinguishable from resampling noise.
+    pub bias_detected: bool,
     pub bias_norm_interval: Interval,
     pub mse: f64,
     pub snr: Option<f64>,
@@ -129,6 +137,19 @@ pub fn summarise(
                 .map(|(a, b)| (a - b).powi(2))
                 .sum();
             let bias_sq = (dist_sq - v_diff).max(0.0);
+            // Under no bias, D = g_k - g_ref is roughly N(0, S) with S the bootstrap covariance
+            // of the paired difference, so ||D||^2 has mean tr S and variance 2 tr(S^2) (the
+            // moments of a Gaussian quadratic form). bias_z measures the excess in those units.
+            let spread = (2.0
+                * frobenius_sq(
+                    &|b, j| rep[[b, k, j]] - rep[[b, reference, j]],
+                    rep.shape()[0],
+                    d,
+                ))
+            .sqrt();
+            let bias_z = (k != reference && spread > 0.0).then(|| (dist_sq - v_diff) / spread);
+            let bias_detected = bias_z.is_some_and(|z| z >= BIAS_Z)
+                || (spread == 0.0 && k != reference && bias_sq > 0.0);
             let mse = bias_sq + variance;
             let gradient_norm = norm(&mut points[k].iter().copied());
             let norms: Vec<f64> = (0..rep.shape()[0])
@@ -160,7 +181,7 @@ pub fn summarise(
             };
 
             let threshold = signal / cfg.target_snr;
-            let bias_limited = signal > 0.0 && threshold <= bias_sq;
+            let bias_limited = signal > 0.0 && threshold <= bias_sq && bias_detected;
             let episodes_for_snr = if signal == 0.0 {
                 notes.push("episodes_for_snr undefined: zero signal".to_string());
                 None
@@ -171,6 +192,15 @@ pub fn summarise(
                     cfg.target_snr
                 ));
                 None
+            } else if threshold <= bias_sq {
+                // The point estimate says bias-limited but the bias is not detected: plan as
+                // if unbiased, and say so.
+                notes.push(format!(
+                    "episodes_for_snr assumes no bias: the estimated bias^2 ({bias_sq:.3e}) \
+                     would make snr {} unreachable but is not distinguishable from noise",
+                    cfg.target_snr
+                ));
+                Some(((n * variance / threshold).ceil() as u64).max(1))
             } else {
                 let need = n * variance / (threshold - bias_sq);
                 Some((need.ceil() as u64).max(1))
@@ -207,6 +237,8 @@ pub fn summarise(
                 gradient_norm_interval: interval(norms),
                 variance,
                 bias_sq,
+                bias_z,
+                bias_detected,
                 bias_norm_interval: interval(bias_norms),
                 mse,
                 snr,
@@ -226,6 +258,39 @@ pub fn summarise(
             reference_variance: v_ref,
         },
     )
+}
+
+/// Squared Frobenius norm of the sample covariance (B - 1 denominator) of the replicate
+/// vectors f(b, .), i.e. tr(S^2).
+fn frobenius_sq(f: &dyn Fn(usize, usize) -> f64, b_count: usize, d: usize) -> f64 {
+    let mut x = vec![0.0; b_count * d];
+    for b in 0..b_count {
+        for j in 0..d {
+            x[b * d + j] = f(b, j);
+        }
+    }
+    let mut mean = vec![0.0; d];
+    for b in 0..b_count {
+        for j in 0..d {
+            mean[j] += x[b * d + j] / b_count as f64;
+        }
+    }
+    for b in 0..b_count {
+        for j in 0..d {
+            x[b * d + j] -= mean[j];
+        }
+    }
+    let mut total = 0.0;
+    for i in 0..d {
+        for j in 0..d {
+            let c: f64 = (0..b_count)
+                .map(|b| x[b * d + i] * x[b * d + j])
+                .sum::<f64>()
+                / (b_count as f64 - 1.0);
+            total += c * c;
+        }
+    }
+    total
 }
 
 /// Linear-interpolation percentile of sorted data (the "type 7" rule of Hyndman and Fan 1996).

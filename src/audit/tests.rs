@@ -348,7 +348,7 @@ fn lq_simulation_agrees_with_exact_gradient() {
             x += u;
         }
     }
-    let mut c = cfg("rtg,total", 1.0);
+    let mut c = cfg("rtg,total,rtg_discounted", 0.5);
     c.resamples = 1000;
     c.confidence = 0.99;
     let r = audit_text(&text, &c);
@@ -366,6 +366,20 @@ fn lq_simulation_agrees_with_exact_gradient() {
         );
     }
     assert!(row(&r, "rtg").variance < row(&r, "total").variance);
+    // total is unbiased for the same objective (past rewards are uncorrelated with later
+    // scores), so its bias must not be called detected; discounting with gamma = 0.5 drops
+    // most of the future cost of an action on a 6-step horizon, a real bias that must be.
+    assert!(
+        !row(&r, "total").bias_detected,
+        "{:?}",
+        row(&r, "total").bias_z
+    );
+    let disc = row(&r, "rtg_discounted");
+    assert!(
+        disc.bias_detected && disc.bias_z.unwrap() > 10.0,
+        "{:?}",
+        disc.bias_z
+    );
 }
 
 // Results are bit-identical for any thread count: replicate blocks have a fixed size and each

@@ -48,8 +48,8 @@ pub fn number(text: &[u8]) -> Result<f64, FieldProblem> {
     if t.is_empty() {
         return Err(FieldProblem::Empty);
     }
-    let s = std::str::from_utf8(t).map_err(|_| FieldProblem::NotANumber)?;
-    let v: f64 = s.parse().map_err(|_| FieldProblem::NotANumber)?;
+    // Byte-level, correctly rounded parse (no UTF-8 check needed: non-ASCII is rejected).
+    let v: f64 = fast_float2::parse(t).map_err(|_| FieldProblem::NotANumber)?;
     if v.is_finite() {
         Ok(v)
     } else {
@@ -107,6 +107,22 @@ mod tests {
         assert_eq!(number(b"-inf"), Err(FieldProblem::NotFinite));
         assert_eq!(number(b"1e999"), Err(FieldProblem::NotFinite));
         assert_eq!(optional_number(b"  "), Ok(None));
+        assert_eq!(number("1\u{e9}".as_bytes()), Err(FieldProblem::NotANumber));
+        assert_eq!(number(b"1.5.2"), Err(FieldProblem::NotANumber));
+        // Correct rounding, the same as the standard library's parser (the general-purpose
+        // reference here) on hard cases near halfway points.
+        for text in [
+            "0.1",
+            "2.2250738585072011e-308",
+            "9007199254740993",
+            "1.7976931348623157e308",
+        ] {
+            assert_eq!(
+                number(text.as_bytes()),
+                Ok(text.parse::<f64>().unwrap()),
+                "{text}"
+            );
+        }
     }
 
     #[test]

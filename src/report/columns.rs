@@ -37,7 +37,14 @@ pub const COLUMNS: &[Column] = &[
     Column {
         title: "bias^2",
         key: "bias_sq",
-        cell: |r| Cell::Num(Some(r.bias_sq)),
+        cell: |r| {
+            // A bias that resampling noise could explain is marked with '?' (see the legend).
+            if r.bias_sq > 0.0 && !r.bias_detected {
+                Cell::Text(format!("{}?", super::table::num(r.bias_sq)))
+            } else {
+                Cell::Num(Some(r.bias_sq))
+            }
+        },
     },
     Column {
         title: "variance",

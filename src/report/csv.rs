@@ -8,6 +8,7 @@ pub fn render(r: &AuditReport) -> String {
     let mut w = ::csv::Writer::from_writer(Vec::new());
     let mut header: Vec<&str> = COLUMNS.iter().map(|c| c.key).collect();
     header[0] = "estimator";
+    header.push("bias_detected");
     header.push("reference");
     header.push("notes");
     w.write_record(&header).expect("writing to memory");
@@ -21,7 +22,12 @@ pub fn render(r: &AuditReport) -> String {
                 Cell::Text(t) => t,
             })
             .collect();
+        // CSV keeps numbers machine-readable: the '?' marker becomes its own column.
+        if let Some(i) = COLUMNS.iter().position(|c| c.key == "bias_sq") {
+            cells[i] = format!("{}", row.bias_sq);
+        }
         cells[0] = row.name.clone();
+        cells.push(row.bias_detected.to_string());
         cells.push(row.reference.to_string());
         cells.push(row.notes.join("; "));
         w.write_record(&cells).expect("writing to memory");

@@ -34,6 +34,9 @@ pub fn render(r: &AuditReport) -> String {
             out.push_str(&format!("- note ({}): {note}\n", row.name));
         }
     }
+    if let Some(line) = super::table::bias_legend(r) {
+        out.push_str(&format!("- {line}\n"));
+    }
     for s in &r.skipped {
         out.push_str(&format!("- skipped `{}`: {}\n", s.name, s.reason));
     }

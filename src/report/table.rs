@@ -75,9 +75,30 @@ pub fn render(r: &AuditReport) -> String {
             out.push_str(&format!("note ({}): {note}\n", row.name));
         }
     }
+    if let Some(line) = bias_legend(r) {
+        out.push_str(&line);
+        out.push('\n');
+    }
     for s in &r.skipped {
         out.push_str(&format!("skipped {}: {}\n", s.name, s.reason));
     }
     out.push_str(&format!("verdict: {}\n", r.verdict.text));
     out
+}
+
+/// Explains the '?' marker: which biases resampling noise could explain, with their z.
+pub fn bias_legend(r: &AuditReport) -> Option<String> {
+    let unsure: Vec<String> = r
+        .estimators
+        .iter()
+        .filter(|e| e.bias_sq > 0.0 && !e.bias_detected)
+        .map(|e| format!("{} {:.1}", e.name, e.bias_z.unwrap_or(0.0)))
+        .collect();
+    (!unsure.is_empty()).then(|| {
+        format!(
+            "?: bias^2 within resampling noise (z < {}), it may be zero; z: {}",
+            crate::stats::BIAS_Z,
+            unsure.join(", ")
+        )
+    })
 }

@@ -106,7 +106,14 @@ fn table_csv_and_markdown() {
     let headers = rdr.headers().unwrap().clone();
     assert_eq!(&headers[0], "estimator");
     assert!(headers.iter().any(|h| h == "bias_sq"));
-    assert_eq!(rdr.records().count(), 16);
+    let records: Vec<csv::StringRecord> = rdr.records().map(Result::unwrap).collect();
+    assert_eq!(records.len(), 16);
+    let detected = headers.iter().position(|h| h == "bias_detected").unwrap();
+    for r in &records {
+        assert_eq!(r.len(), headers.len());
+        assert!(["true", "false"].contains(&&r[detected]));
+        r[1].parse::<f64>().expect("mse is a plain number");
+    }
     let (_, md, _) = run(&[
         "audit",
         &rover,
