@@ -10,9 +10,14 @@ fn main() -> ExitCode {
         Ok(code) => ExitCode::from(code),
         Err(e) => {
             eprintln!("gradaudit: error: {e}");
+            let shown = e.to_string();
             let mut source = std::error::Error::source(&e);
             while let Some(cause) = source {
-                eprintln!("  caused by: {cause}");
+                // Our messages often quote their cause already; print only what is new.
+                let text = cause.to_string();
+                if !shown.contains(&text) {
+                    eprintln!("  caused by: {text}");
+                }
                 source = cause.source();
             }
             ExitCode::from(exit::BAD_INPUT)

@@ -54,6 +54,7 @@ pub struct LogReader {
     ended: HashMap<Vec<u8>, u64>,
     leftovers: Vec<Episode>,
     at_eof: bool,
+    compressed: bool,
     rows: u64,
     warnings: Warnings,
     bar: Option<ProgressBar>,
@@ -62,8 +63,27 @@ pub struct LogReader {
 impl LogReader {
     /// Opens `path` (`-` for stdin) and reads its header row.
     pub fn open(path: &str, options: &ReadOptions) -> Result<Self> {
-        let (input, bar) = source::open(path, options.progress)?;
-        Self::from_reader(input, &source::display_name(path), options, bar)
+        let src = source::open(path, options.progress)?;
+        let name = source::display_name(path);
+        let compressed = src.compressed;
+        let mut reader = Self::from_reader(src.reader, &name, options, src.bar);
+        if compressed {
+            // Damaged deflate data can decode into plausible garbage; gzip's checksum is only
+            // read at the end of the stream, so on any input error look there first.
+            if let Err(e) = reader {
+                // The failed reader consumed the stream; decode a fresh copy (not possible for
+                // stdin, which keeps the original error).
+                let damage = (path != "-")
+                    .then(|| source::open(path, Progress::Hidden).ok())
+                    .flatten()
+                    .and_then(|mut fresh| stream_damage(&name, &mut fresh.reader));
+                return Err(damage.unwrap_or(e));
+            }
+            if let Ok(r) = reader.as_mut() {
+                r.compressed = true;
+            }
+        }
+        reader
     }
 
     /// Reads from any byte source; `file` is the name used in messages.
@@ -143,6 +163,7 @@ impl LogReader {
             ended: HashMap::new(),
             leftovers: Vec::new(),
             at_eof: false,
+            compressed: false,
             rows: 0,
             warnings,
             bar,
@@ -174,6 +195,16 @@ impl LogReader {
     /// The next finished episode, in the order their end rows appear; episodes still open at
     /// the end of the file follow, in the order they started.
     pub fn next_episode(&mut self) -> Result<Option<Episode>> {
+        let next = self.next_inner();
+        match next {
+            Err(e @ Error::Input(_)) if self.compressed => {
+                Err(stream_damage(&self.file, self.csv.get_mut()).unwrap_or(e))
+            }
+            other => other,
+        }
+    }
+
+    fn next_inner(&mut self) -> Result<Option<Episode>> {
         while !self.at_eof {
             let got = self
                 .csv
@@ -433,6 +464,18 @@ impl Iterator for LogReader {
     type Item = Result<Episode>;
     fn next(&mut self) -> Option<Self::Item> {
         self.next_episode().transpose()
+    }
+}
+
+/// Reads the rest of a compressed stream; if the decoder reports damage, that is the error to
+/// show (whatever the garbage before it looked like).
+fn stream_damage(file: &str, rest: &mut dyn Read) -> Option<Error> {
+    match std::io::copy(rest, &mut std::io::sink()) {
+        Err(io) => match csv_error(file, csv::Error::from(io)) {
+            e @ Error::Input(_) => Some(e),
+            _ => None,
+        },
+        Ok(_) => None,
     }
 }
 

@@ -26,8 +26,15 @@ pub fn display_name(path: &str) -> String {
     }
 }
 
+/// An opened log: the (decompressed) bytes, the progress bar, and whether it was compressed.
+pub struct Source {
+    pub reader: Box<dyn Read>,
+    pub bar: Option<ProgressBar>,
+    pub compressed: bool,
+}
+
 /// Opens `path` for reading, decompressing gzip transparently.
-pub fn open(path: &str, progress: Progress) -> Result<(Box<dyn Read>, Option<ProgressBar>)> {
+pub fn open(path: &str, progress: Progress) -> Result<Source> {
     let name = display_name(path);
     let (raw, len): (Box<dyn Read>, Option<u64>) = if path == "-" {
         (Box::new(io::stdin().lock()), None)
@@ -53,10 +60,15 @@ pub fn open(path: &str, progress: Progress) -> Result<(Box<dyn Read>, Option<Pro
     };
     let mut buffered = BufReader::with_capacity(1 << 16, counted);
     let magic = buffered.fill_buf().map_err(|e| Error::io(&name, e))?;
-    let reader: Box<dyn Read> = if magic.starts_with(&[0x1f, 0x8b]) {
+    let compressed = magic.starts_with(&[0x1f, 0x8b]);
+    let reader: Box<dyn Read> = if compressed {
         Box::new(flate2::bufread::MultiGzDecoder::new(buffered))
     } else {
         Box::new(buffered)
     };
-    Ok((reader, bar))
+    Ok(Source {
+        reader,
+        bar,
+        compressed,
+    })
 }

@@ -131,6 +131,16 @@ fn corrupt_and_cut_gzip() {
     check(&bad, &["compressed stream"]);
     let cut = dir.write("cut.csv.gz", &std::fs::read(&good).unwrap()[..20]);
     check(&cut, &["compressed stream"]);
+    // Damage that decodes into plausible garbage (here a header with a duplicate name) must
+    // still be reported as damage: gzip's checksum at the end of the stream catches it.
+    let text = "episode,step,reward,terminated,truncated,score_0\na,0,1,1,0,1\n";
+    let good = dir.write_gz("plain.csv.gz", text.as_bytes());
+    let mut bytes = std::fs::read(&good).unwrap();
+    let mid = bytes.len() / 2;
+    bytes[mid] ^= 0xff;
+    bytes[mid + 1] ^= 0xff;
+    let garbled = dir.write("garbled.csv.gz", &bytes);
+    check(&garbled, &["compressed stream"]);
 }
 
 #[test]
