@@ -253,6 +253,7 @@ pub fn run(mut reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
             splits: cfg.splits,
         },
         signal: signal.signal,
+        signal_interval: signal.signal_interval,
         reference_variance: signal.reference_variance,
         estimators,
         skipped,

@@ -4,6 +4,8 @@
 use crate::audit::{self, AuditConfig, DEFAULT_SEED};
 use crate::error::{Error, Result};
 use crate::estimator::Estimator;
+use crate::gate::rules::RegressionRule;
+use crate::gate::{self, Baseline, Rule, RuleSet};
 use crate::log::{ColumnSpec, LogReader, Progress, ReadOptions};
 use crate::report::{self, Format};
 use crate::{inspect, output};
@@ -41,6 +43,8 @@ pub enum Command {
     Inspect(InspectArgs),
     /// Compare policy-gradient estimators on a log: variance, bias, MSE, SNR, ESS
     Audit(AuditArgs),
+    /// Audit a log and check rules on the result: exit 1 when one fails (for CI)
+    Gate(GateArgs),
 }
 
 /// How to read the log (shared by every command).
@@ -98,11 +102,9 @@ pub enum AuditFormat {
     Markdown,
 }
 
+/// What an audit computes (shared by `audit` and `gate`).
 #[derive(Debug, Args)]
-pub struct AuditArgs {
-    #[command(flatten)]
-    pub log: LogArgs,
-
+pub struct AuditOptions {
     /// Discount factor gamma of the discounted estimators, in [0, 1]
     #[arg(long, default_value_t = 0.99)]
     pub gamma: f64,
@@ -136,6 +138,15 @@ pub struct AuditArgs {
     /// Random half splits behind cosine_half
     #[arg(long, default_value_t = 200, value_name = "N")]
     pub splits: usize,
+}
+
+#[derive(Debug, Args)]
+pub struct AuditArgs {
+    #[command(flatten)]
+    pub log: LogArgs,
+
+    #[command(flatten)]
+    pub audit: AuditOptions,
 
     /// Output format
     #[arg(long, value_enum, default_value_t = AuditFormat::Table)]
@@ -182,7 +193,93 @@ impl LogArgs {
     }
 }
 
-impl AuditArgs {
+#[derive(Debug, Clone, Copy, ValueEnum)]
+pub enum GateFormat {
+    Text,
+    Markdown,
+    Json,
+}
+
+#[derive(Debug, Args)]
+#[command(
+    after_help = "Rules: ESTIMATOR:STAT>=VALUE or ESTIMATOR:STAT<=VALUE, ESTIMATOR may be \
+    `*` (every audited estimator); append @interval to require the bound at the pessimistic end \
+    of the bootstrap interval, and ? to let an undefined statistic pass. Statistics: snr, ess, \
+    relative_bias, relative_variance, cosine_half, episodes_for_snr (also variance, bias_sq, mse).\n\
+    Example: gradaudit gate eval.csv --require 'gae:0.95:snr>=2@interval' --require '*:relative_bias<=0.5'\n\
+    Exit codes: 0 every check holds, 1 a check failed, 2 bad usage or bad input."
+)]
+pub struct GateArgs {
+    #[command(flatten)]
+    pub log: LogArgs,
+
+    #[command(flatten)]
+    pub audit: AuditOptions,
+
+    /// Rules file (JSON, schema gradaudit.rules/1; see the README)
+    #[arg(long, value_name = "FILE")]
+    pub rules: Option<String>,
+
+    /// A rule as a flag (repeatable), e.g. `gae:0.95:snr>=2@interval`
+    #[arg(long, value_name = "RULE")]
+    pub require: Vec<String>,
+
+    /// A previous report (`audit --format json` or `gate --format json`) to check for regressions
+    #[arg(long, value_name = "FILE")]
+    pub baseline: Option<String>,
+
+    /// Regression bound STAT:PCT or ESTIMATOR:STAT:PCT (repeatable), e.g. `variance:25`: fail
+    /// when the statistic is more than PCT percent worse than in the baseline. With --baseline
+    /// and no regression bound, `variance:25` applies
+    #[arg(long, value_name = "SPEC")]
+    pub regress: Vec<String>,
+
+    /// Output format of the summary
+    #[arg(long, value_enum, default_value_t = GateFormat::Text)]
+    pub format: GateFormat,
+
+    /// Write the summary here (atomically) instead of stdout
+    #[arg(long, value_name = "FILE", default_value = "-")]
+    pub out: String,
+
+    /// Also write the result as JUnit XML (one test case per rule and estimator)
+    #[arg(long, value_name = "FILE")]
+    pub junit: Option<String>,
+}
+
+impl GateArgs {
+    pub fn rule_set(&self) -> Result<RuleSet> {
+        let mut set = match &self.rules {
+            Some(path) => RuleSet::load(path)?,
+            None => RuleSet::default(),
+        };
+        for r in &self.require {
+            set.rules
+                .push(Rule::parse_flag(r).map_err(|e| Error::usage(format!("--require {e}")))?);
+        }
+        for r in &self.regress {
+            set.regressions.push(
+                RegressionRule::parse_flag(r)
+                    .map_err(|e| Error::usage(format!("--regress {e}")))?,
+            );
+        }
+        if self.baseline.is_some() && set.regressions.is_empty() {
+            set.regressions
+                .push(RegressionRule::parse_flag("variance:25").expect("valid"));
+        }
+        if self.baseline.is_none() && !set.regressions.is_empty() {
+            return Err(Error::usage("regression bounds need --baseline FILE"));
+        }
+        if set.rules.is_empty() && set.regressions.is_empty() {
+            return Err(Error::usage(
+                "nothing to check: give --rules FILE, --require RULE or --baseline FILE",
+            ));
+        }
+        Ok(set)
+    }
+}
+
+impl AuditOptions {
     pub fn config(&self) -> Result<AuditConfig> {
         let estimators = match &self.estimators {
             Some(list) => Some(
@@ -206,7 +303,9 @@ impl AuditArgs {
         cfg.validate()?;
         Ok(cfg)
     }
+}
 
+impl AuditArgs {
     fn format(&self) -> Format {
         match self.format {
             AuditFormat::Table => Format::Table,
@@ -229,10 +328,33 @@ pub fn run(cli: Cli) -> Result<u8> {
             output::write("-", &text)?;
         }
         Command::Audit(a) => {
-            let cfg = a.config()?;
+            let cfg = a.audit.config()?;
             output::check_writable(&a.out)?;
             let report = audit::run(a.log.open()?, &cfg)?;
             output::write(&a.out, &report::render(&report, a.format()))?;
+        }
+        Command::Gate(g) => {
+            let mut cfg = g.audit.config()?;
+            let rules = g.rule_set()?;
+            let baseline = g.baseline.as_deref().map(Baseline::load).transpose()?;
+            output::check_writable(&g.out)?;
+            if let Some(j) = &g.junit {
+                output::check_writable(j)?;
+            }
+            gate::include_named(&mut cfg, &rules);
+            let result = gate::run(audit::run(g.log.open()?, &cfg)?, &rules, baseline.as_ref())?;
+            let text = match g.format {
+                GateFormat::Text => report::gate::render_text(&result),
+                GateFormat::Markdown => report::gate::render_markdown(&result),
+                GateFormat::Json => report::gate::render_json(&result),
+            };
+            output::write(&g.out, &text)?;
+            if let Some(j) = &g.junit {
+                output::write(j, &report::gate::render_junit(&result))?;
+            }
+            if !result.passed {
+                return Ok(exit::CHECK_FAILED);
+            }
         }
     }
     Ok(exit::OK)

@@ -14,6 +14,7 @@ pub mod audit;
 pub mod cli;
 pub mod contrib;
 pub mod estimator;
+pub mod gate;
 pub mod inspect;
 pub mod output;
 pub mod report;

@@ -37,6 +37,8 @@ pub struct EstimatorStats {
     pub variance: f64,
     pub bias_sq: f64,
     /// How many null standard deviations ||g_k - g_ref||^2 lies above its no-bias mean.
+    /// Bias-corrected percentile interval of bias_sq (see [`sq_norm_interval`]).
+    pub bias_sq_interval: Interval,
     pub bias_z: Option<f64>,
     /// bias_z >= [`BIAS_Z`]: the bias is distinguishable from resampling noise.
     pub bias_detected: bool,
@@ -57,6 +59,7 @@ pub struct EstimatorStats {
 pub struct Signal {
     /// max(0, ||g_ref||^2 - V_ref): the squared norm of the reference gradient, noise removed.
     pub signal: f64,
+    pub signal_interval: Interval,
     pub reference_variance: f64,
 }
 
@@ -122,6 +125,13 @@ pub fn summarise(
     };
 
     let v_ref = var_trace(&|b, j| rep[[b, reference, j]]);
+    let signal_interval = sq_norm_interval(
+        (0..rep.shape()[0])
+            .map(|b| (0..d).map(|j| rep[[b, reference, j]].powi(2)).sum())
+            .collect(),
+        v_ref,
+        cfg.confidence,
+    );
     let ref_sq: f64 = points[reference].iter().map(|x| x * x).sum();
     let signal = (ref_sq - v_ref).max(0.0);
     let n = cfg.episodes as f64;
@@ -131,12 +141,20 @@ pub fn summarise(
             let mut notes = Vec::new();
             let variance = var_trace(&|b, j| rep[[b, k, j]]);
             let v_diff = var_trace(&|b, j| rep[[b, k, j]] - rep[[b, reference, j]]);
+            let bias_norms: Vec<f64> = (0..rep.shape()[0])
+                .map(|b| norm(&mut (0..d).map(|j| rep[[b, k, j]] - rep[[b, reference, j]])))
+                .collect();
             let dist_sq: f64 = points[k]
                 .iter()
                 .zip(&points[reference])
                 .map(|(a, b)| (a - b).powi(2))
                 .sum();
             let bias_sq = (dist_sq - v_diff).max(0.0);
+            let bias_sq_interval = sq_norm_interval(
+                bias_norms.iter().map(|x| x * x).collect(),
+                v_diff,
+                cfg.confidence,
+            );
             // Under no bias, D = g_k - g_ref is roughly N(0, S) with S the bootstrap covariance
             // of the paired difference, so ||D||^2 has mean tr S and variance 2 tr(S^2) (the
             // moments of a Gaussian quadratic form). bias_z measures the excess in those units.
@@ -154,9 +172,6 @@ pub fn summarise(
             let gradient_norm = norm(&mut points[k].iter().copied());
             let norms: Vec<f64> = (0..rep.shape()[0])
                 .map(|b| norm(&mut (0..d).map(|j| rep[[b, k, j]])))
-                .collect();
-            let bias_norms: Vec<f64> = (0..rep.shape()[0])
-                .map(|b| norm(&mut (0..d).map(|j| rep[[b, k, j]] - rep[[b, reference, j]])))
                 .collect();
 
             let (snr, ess) = if mse > 0.0 {
@@ -237,6 +252,7 @@ pub fn summarise(
                 gradient_norm_interval: interval(norms),
                 variance,
                 bias_sq,
+                bias_sq_interval,
                 bias_z,
                 bias_detected,
                 bias_norm_interval: interval(bias_norms),
@@ -255,9 +271,22 @@ pub fn summarise(
         stats,
         Signal {
             signal,
+            signal_interval,
             reference_variance: v_ref,
         },
     )
+}
+
+/// Interval for a noise-corrected squared norm ||g||^2 - V from the replicates' ||g*||^2.
+/// The bootstrap mean of ||g*||^2 exceeds ||g||^2 by the variance trace V, so ||g*||^2 - 2V is
+/// centred on the point estimate ||g||^2 - V; its percentiles (clamped at 0) are the interval.
+pub fn sq_norm_interval(mut sq: Vec<f64>, v: f64, confidence: f64) -> Interval {
+    sq.sort_by(f64::total_cmp);
+    let alpha = 1.0 - confidence;
+    Interval {
+        low: (percentile(&sq, alpha / 2.0) - 2.0 * v).max(0.0),
+        high: (percentile(&sq, 1.0 - alpha / 2.0) - 2.0 * v).max(0.0),
+    }
 }
 
 /// Squared Frobenius norm of the sample covariance (B - 1 denominator) of the replicate

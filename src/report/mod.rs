@@ -3,6 +3,7 @@
 
 pub mod columns;
 pub mod csv;
+pub mod gate;
 pub mod inspect;
 pub mod markdown;
 pub mod table;
@@ -78,6 +79,7 @@ pub struct EstimatorRow {
     pub gradient_norm_interval: Interval,
     pub variance: f64,
     pub bias_sq: f64,
+    pub bias_sq_interval: Interval,
     pub bias_z: Option<f64>,
     pub bias_detected: bool,
     pub bias_norm_interval: Interval,
@@ -110,6 +112,7 @@ impl EstimatorRow {
             gradient_norm_interval: s.gradient_norm_interval,
             variance: s.variance,
             bias_sq: s.bias_sq,
+            bias_sq_interval: s.bias_sq_interval,
             bias_z: s.bias_z.filter(|x| x.is_finite()),
             bias_detected: s.bias_detected,
             bias_norm_interval: s.bias_norm_interval,
@@ -184,6 +187,7 @@ pub struct AuditReport {
     pub settings: Settings,
     /// max(0, ||g_ref||^2 - V_ref), the squared norm of the reference gradient, noise removed.
     pub signal: f64,
+    pub signal_interval: Interval,
     pub reference_variance: f64,
     /// Sorted by MSE, lowest first.
     pub estimators: Vec<EstimatorRow>,

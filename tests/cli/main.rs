@@ -4,4 +4,5 @@ mod util;
 
 mod audit;
 mod bad_input;
+mod gate;
 mod inspect;

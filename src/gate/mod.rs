@@ -1,0 +1,345 @@
+//! The gate: rules on an audit's statistics and on its regression against a baseline report,
+//! evaluated into pass/fail outcomes with the measured value, the bound and the margin. The
+//! gate only reads the report model; it never recomputes statistics.
+
+pub mod baseline;
+pub mod rules;
+
+use crate::report::{AuditReport, EstimatorRow};
+pub use baseline::{Baseline, Regression, RegressionOutcome};
+pub use rules::{At, Bound, Rule, RuleSet};
+use serde::Serialize;
+
+/// A statistic a rule can bound.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, serde::Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Stat {
+    Snr,
+    Ess,
+    /// sqrt(bias_sq / signal): the bias as a fraction of the true gradient's length.
+    RelativeBias,
+    /// variance / signal: the noise of one update relative to the squared gradient.
+    RelativeVariance,
+    CosineHalf,
+    EpisodesForSnr,
+    Variance,
+    BiasSq,
+    Mse,
+}
+
+impl Stat {
+    pub const ALL: [Stat; 9] = [
+        Stat::Snr,
+        Stat::Ess,
+        Stat::RelativeBias,
+        Stat::RelativeVariance,
+        Stat::CosineHalf,
+        Stat::EpisodesForSnr,
+        Stat::Variance,
+        Stat::BiasSq,
+        Stat::Mse,
+    ];
+
+    pub fn key(self) -> &'static str {
+        match self {
+            Stat::Snr => "snr",
+            Stat::Ess => "ess",
+            Stat::RelativeBias => "relative_bias",
+            Stat::RelativeVariance => "relative_variance",
+            Stat::CosineHalf => "cosine_half",
+            Stat::EpisodesForSnr => "episodes_for_snr",
+            Stat::Variance => "variance",
+            Stat::BiasSq => "bias_sq",
+            Stat::Mse => "mse",
+        }
+    }
+
+    pub fn parse(text: &str) -> Result<Stat, String> {
+        Stat::ALL
+            .into_iter()
+            .find(|s| s.key() == text)
+            .ok_or_else(|| {
+                let keys: Vec<_> = Stat::ALL.iter().map(|s| s.key()).collect();
+                format!("unknown statistic '{text}'; known: {}", keys.join(", "))
+            })
+    }
+
+    /// Whether a larger value is better (snr, ess, cosine_half) or worse (the rest).
+    pub fn higher_is_better(self) -> bool {
+        matches!(self, Stat::Snr | Stat::Ess | Stat::CosineHalf)
+    }
+}
+
+/// A statistic's value, or why it has none.
+pub type Measured = Result<f64, String>;
+
+/// The point figures of one estimator that statistics are read from (of this run or of a
+/// baseline report).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Figures {
+    pub variance: f64,
+    pub bias_sq: f64,
+    pub mse: f64,
+    pub snr: Option<f64>,
+    pub ess: Option<f64>,
+    pub cosine_half: Option<f64>,
+    pub episodes_for_snr: Option<u64>,
+    pub signal: f64,
+}
+
+impl Figures {
+    pub fn of(report: &AuditReport, row: &EstimatorRow) -> Figures {
+        Figures {
+            variance: row.variance,
+            bias_sq: row.bias_sq,
+            mse: row.mse,
+            snr: row.snr,
+            ess: row.ess,
+            cosine_half: row.cosine_half,
+            episodes_for_snr: row.episodes_for_snr,
+            signal: report.signal,
+        }
+    }
+
+    /// The statistic's point value, None where undefined.
+    pub fn stat(&self, stat: Stat) -> Option<f64> {
+        match stat {
+            Stat::Snr => self.snr,
+            Stat::Ess => self.ess,
+            Stat::CosineHalf => self.cosine_half,
+            Stat::EpisodesForSnr => self.episodes_for_snr.map(|n| n as f64),
+            Stat::RelativeBias => (self.signal > 0.0).then(|| (self.bias_sq / self.signal).sqrt()),
+            Stat::RelativeVariance => (self.signal > 0.0).then(|| self.variance / self.signal),
+            Stat::Variance => Some(self.variance),
+            Stat::BiasSq => Some(self.bias_sq),
+            Stat::Mse => Some(self.mse),
+        }
+    }
+}
+
+/// The point estimate of `stat` for one estimator of a report, or why it is undefined.
+pub fn point(report: &AuditReport, row: &EstimatorRow, stat: Stat) -> Measured {
+    Figures::of(report, row).stat(stat).ok_or_else(|| {
+        let why = match stat {
+            Stat::RelativeBias | Stat::RelativeVariance => "zero signal".to_string(),
+            Stat::CosineHalf => "the half-batch gradients are zero".to_string(),
+            _ => note_or(row, "see the audit notes"),
+        };
+        format!("{} is undefined: {why}", stat.key())
+    })
+}
+
+fn note_or(row: &EstimatorRow, fallback: &str) -> String {
+    row.notes
+        .first()
+        .cloned()
+        .unwrap_or_else(|| fallback.to_string())
+}
+
+/// The pessimistic end of `stat`'s bootstrap interval for one estimator: the low end for a
+/// statistic where higher is better, the high end otherwise. Derived statistics combine the
+/// interval ends of signal and bias_sq in the direction that makes them worst.
+pub fn pessimistic(report: &AuditReport, row: &EstimatorRow, stat: Stat) -> Measured {
+    let (s_lo, b_hi) = (report.signal_interval.low, row.bias_sq_interval.high);
+    let n = report.input.episodes as f64;
+    let v = row.variance;
+    let undefined = |why: &str| {
+        Err(format!(
+            "{} at its interval end is undefined: {why}",
+            stat.key()
+        ))
+    };
+    match stat {
+        Stat::Snr if s_lo > 0.0 => Ok(s_lo / (b_hi + v)),
+        Stat::Snr => undefined("the signal's lower bound is 0"),
+        Stat::Ess if b_hi + v > 0.0 => Ok(n * report.reference_variance / (b_hi + v)),
+        Stat::Ess => undefined("zero error"),
+        Stat::RelativeBias | Stat::RelativeVariance if s_lo <= 0.0 => {
+            undefined("the signal's lower bound is 0")
+        }
+        Stat::RelativeBias => Ok((b_hi / s_lo).sqrt()),
+        Stat::RelativeVariance => Ok(v / s_lo),
+        Stat::CosineHalf => row.cosine_half_interval.map_or_else(
+            || undefined("the half-batch gradients are zero"),
+            |i| Ok(i.low),
+        ),
+        Stat::EpisodesForSnr => {
+            let room = s_lo / report.settings.target_snr - b_hi;
+            if room > 0.0 {
+                Ok((n * v / room).ceil().max(1.0))
+            } else {
+                undefined("at the interval ends the bias alone keeps snr below the target")
+            }
+        }
+        Stat::BiasSq => Ok(b_hi),
+        Stat::Variance => Ok(v),
+        Stat::Mse => Ok(b_hi + v),
+    }
+}
+
+/// One rule applied to one estimator.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Outcome {
+    pub estimator: String,
+    /// e.g. `snr >= 2 (interval)`.
+    pub rule: String,
+    pub stat: Stat,
+    pub bound: Bound,
+    pub at: At,
+    pub measured: Option<f64>,
+    /// Positive when the rule holds: measured - min, or max - measured.
+    pub margin: Option<f64>,
+    pub passed: bool,
+    /// Why a statistic is undefined, and whether that was allowed.
+    pub detail: Option<String>,
+}
+
+/// Applies every rule to the estimators it names; unknown estimators are the caller's check.
+pub fn evaluate(report: &AuditReport, rules: &[Rule]) -> Vec<Outcome> {
+    let mut out = Vec::new();
+    for rule in rules {
+        let rows: Vec<&EstimatorRow> = match rule.estimator.as_str() {
+            "*" => {
+                let mut all: Vec<&EstimatorRow> = report.estimators.iter().collect();
+                all.sort_by(|a, b| a.name.cmp(&b.name));
+                all
+            }
+            name => report
+                .estimators
+                .iter()
+                .filter(|e| e.name == name)
+                .collect(),
+        };
+        for row in rows {
+            // The reference has no bias against itself: a bias rule on it holds trivially and
+            // is skipped under `*`, where it would only add noise to the report.
+            if rule.estimator == "*" && row.reference && rule.stat == Stat::RelativeBias {
+                continue;
+            }
+            let measured = match rule.at {
+                At::Point => point(report, row, rule.stat),
+                At::Interval => pessimistic(report, row, rule.stat),
+            };
+            let (measured, margin, passed, detail) = match measured {
+                Ok(x) => {
+                    let margin = rule.bound.margin(x);
+                    (Some(x), Some(margin), margin >= 0.0, None)
+                }
+                Err(why) if rule.allow_undefined => {
+                    (None, None, true, Some(format!("{why} (allowed)")))
+                }
+                Err(why) => (None, None, false, Some(why)),
+            };
+            out.push(Outcome {
+                estimator: row.name.clone(),
+                rule: rule.describe(),
+                stat: rule.stat,
+                bound: rule.bound,
+                at: rule.at,
+                measured,
+                margin,
+                passed,
+                detail,
+            });
+        }
+    }
+    out
+}
+
+/// Adds the estimators that rules name to the audit's list, so a rule on, say, `gae:0.8` is
+/// checked even though the default set lacks it.
+pub fn include_named(cfg: &mut crate::audit::AuditConfig, rules: &RuleSet) {
+    let named = rules.named_estimators();
+    if named.is_empty() {
+        return;
+    }
+    let list = cfg
+        .estimators
+        .get_or_insert_with(crate::estimator::Estimator::default_set);
+    for e in named {
+        if !list.contains(&e) {
+            list.push(e);
+        }
+    }
+}
+
+/// Checks rules (and regressions against `baseline`) on a finished audit.
+pub fn run(
+    audit: AuditReport,
+    rules: &RuleSet,
+    baseline: Option<&Baseline>,
+) -> crate::Result<GateReport> {
+    for name in rules.named_estimators().iter().map(|e| e.to_string()) {
+        if !audit.estimators.iter().any(|e| e.name == name) {
+            let why = audit
+                .skipped
+                .iter()
+                .find(|s| s.name == name)
+                .map_or("it was not audited".to_string(), |s| s.reason.clone());
+            return Err(crate::Error::usage(format!(
+                "a rule names estimator {name}, which cannot be checked: {why}"
+            )));
+        }
+    }
+    let outcomes = evaluate(&audit, &rules.rules);
+    let (regressions, notes) = match baseline {
+        Some(b) => {
+            let notes = b.check_compatible(&audit)?;
+            let r = Regression {
+                baseline: b,
+                rules: &rules.regressions,
+            }
+            .evaluate(&audit);
+            (r, Some((b.file.as_str(), notes)))
+        }
+        None => (Vec::new(), None),
+    };
+    Ok(GateReport::new(audit, outcomes, regressions, notes))
+}
+
+/// The whole gate result: the audit it judged, every rule outcome and every regression check.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct GateReport {
+    pub tool: crate::report::Tool,
+    pub passed: bool,
+    pub outcomes: Vec<Outcome>,
+    pub regressions: Vec<RegressionOutcome>,
+    /// Settings that differ between baseline and this run without making them incompatible.
+    pub baseline_notes: Vec<String>,
+    pub baseline_file: Option<String>,
+    pub audit: AuditReport,
+}
+
+impl GateReport {
+    pub fn new(
+        audit: AuditReport,
+        outcomes: Vec<Outcome>,
+        regressions: Vec<RegressionOutcome>,
+        baseline: Option<(&str, Vec<String>)>,
+    ) -> GateReport {
+        let passed = outcomes.iter().all(|o| o.passed) && regressions.iter().all(|r| r.passed);
+        let mut tool = crate::report::Tool::current();
+        tool.schema = "gradaudit.gate/1";
+        GateReport {
+            tool,
+            passed,
+            outcomes,
+            regressions,
+            baseline_notes: baseline.as_ref().map(|b| b.1.clone()).unwrap_or_default(),
+            baseline_file: baseline.map(|b| b.0.to_string()),
+            audit,
+        }
+    }
+
+    pub fn failures(&self) -> usize {
+        self.outcomes.iter().filter(|o| !o.passed).count()
+            + self.regressions.iter().filter(|r| !r.passed).count()
+    }
+
+    pub fn checks(&self) -> usize {
+        self.outcomes.len() + self.regressions.len()
+    }
+}
+
+#[cfg(test)]
+mod tests;
