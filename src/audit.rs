@@ -136,26 +136,29 @@ fn id_order(a: &str, b: &str) -> Ordering {
     }
 }
 
-/// Runs the whole audit over an opened log.
-pub fn run(mut reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
-    cfg.validate()?;
-    let d = reader.schema().score_dim();
-    if d == 0 {
-        return Err(Error::usage(format!(
-            "{}: the log has no score columns (prefix '{}'), and gradients need the score \
-             vector grad log pi(a_t | s_t) of every step; log them as score_0..score_{{d-1}} or \
-             name their prefix with --score-prefix",
-            reader.file(),
-            "score_"
-        )));
+/// The log's score dimension; an error when it has no score columns.
+pub fn score_dim(reader: &LogReader) -> Result<usize> {
+    match reader.schema().score_dim() {
+        0 => Err(Error::usage(format!(
+            "{}: the log has no score columns, and gradients need the score vector \
+             grad log pi(a_t | s_t) of every step; log them as score_0..score_{{d-1}} or name \
+             their prefix with --score-prefix",
+            reader.file()
+        ))),
+        d => Ok(d),
     }
-    let (estimators, skipped) = select(reader.schema(), cfg.estimators.as_deref(), cfg.reference)?;
-    let reference = estimators
-        .iter()
-        .position(|e| *e == cfg.reference)
-        .expect("select() keeps the reference");
-    let plan = Plan::new(estimators, cfg.gamma, d);
+}
 
+/// The result of the single pass: one contribution row per episode, in canonical order.
+pub struct Collected {
+    pub contrib: Array2<f64>,
+    pub input: InputSummary,
+    pub warnings: crate::warnings::Warnings,
+}
+
+/// Reads every episode, reducing each to its contribution row under `plan`. Fails with fewer
+/// than 2 episodes.
+pub fn collect(mut reader: LogReader, plan: &Plan) -> Result<Collected> {
     let mut rows: Vec<(String, Vec<f64>)> = Vec::new();
     let mut work = Work::default();
     let mut input = InputSummary::default();
@@ -172,15 +175,31 @@ pub fn run(mut reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
     }
     input.file = reader.file().to_string();
     input.rows = reader.rows();
-    input.score_dim = d;
-    let mut warnings = reader.warnings().clone();
+    input.score_dim = plan.d;
     let n = rows.len();
     if n < 2 {
         return Err(Error::usage(format!(
-            "{}: the log holds {n} episode(s); an audit needs at least 2 to estimate a variance",
+            "{}: the log holds {n} episode(s); an analysis needs at least 2 to estimate a variance",
             input.file
         )));
     }
+    // Canonical order, so the same episodes in another row order give identical numbers.
+    rows.sort_by(|a, b| id_order(&a.0, &b.0));
+    let mut contrib = Array2::<f64>::zeros((n, plan.width()));
+    for (i, (_, row)) in rows.iter().enumerate() {
+        contrib
+            .row_mut(i)
+            .assign(&ndarray::ArrayView1::from(row.as_slice()));
+    }
+    Ok(Collected {
+        contrib,
+        input,
+        warnings: reader.warnings().clone(),
+    })
+}
+
+/// Adds the few-episodes warning when it applies.
+pub fn few_episodes_warning(n: usize, warnings: &mut crate::warnings::Warnings) {
     if n < FEW_EPISODES {
         warnings.add(
             "few_episodes",
@@ -190,23 +209,20 @@ pub fn run(mut reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
             None,
         );
     }
-    // Canonical order, so the same episodes in another row order give identical numbers.
-    rows.sort_by(|a, b| id_order(&a.0, &b.0));
-    for w in rows.windows(2) {
-        debug_assert!(w[0].0 != w[1].0, "the reader rejects reused ids");
-    }
-    let width = plan.width();
-    let mut contrib = Array2::<f64>::zeros((n, width));
-    for (i, (_, row)) in rows.iter().enumerate() {
-        contrib
-            .row_mut(i)
-            .assign(&ndarray::ArrayView1::from(row.as_slice()));
-    }
-    drop(rows);
+}
 
+/// Mean rows of the full sample, of every bootstrap replicate and of every half split.
+pub struct Resampled {
+    pub point: Vec<f64>,
+    pub replicates: Array2<f64>,
+    pub halves: Array2<f64>,
+}
+
+pub fn resample_all(data: &Collected, cfg: &AuditConfig) -> Resampled {
+    let contrib = &data.contrib;
     let point: Vec<f64> = contrib
         .mean_axis(ndarray::Axis(0))
-        .expect("n >= 2")
+        .expect("collect() guarantees n >= 2")
         .to_vec();
     let seed = cfg.seed;
     let replicates = resample::weighted_means(contrib.view(), cfg.resamples, |b, w| {
@@ -217,6 +233,34 @@ pub fn run(mut reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
         resample::half_split(seed, (r / 2) as u64, &mut first, &mut second);
         w.copy_from_slice(if r % 2 == 0 { &first } else { &second });
     });
+    Resampled {
+        point,
+        replicates,
+        halves,
+    }
+}
+
+/// Runs the whole audit over an opened log.
+pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
+    cfg.validate()?;
+    let d = score_dim(&reader)?;
+    let (estimators, skipped) = select(reader.schema(), cfg.estimators.as_deref(), cfg.reference)?;
+    let reference = estimators
+        .iter()
+        .position(|e| *e == cfg.reference)
+        .expect("select() keeps the reference");
+    let plan = Plan::new(estimators, cfg.gamma, d);
+
+    let data = collect(reader, &plan)?;
+    let n = data.contrib.nrows();
+    let mut warnings = data.warnings.clone();
+    few_episodes_warning(n, &mut warnings);
+    let Resampled {
+        point,
+        replicates,
+        halves,
+    } = resample_all(&data, cfg);
+    let input = data.input;
     let scfg = StatsConfig {
         episodes: n,
         confidence: cfg.confidence,

@@ -8,6 +8,7 @@ use crate::gate::rules::RegressionRule;
 use crate::gate::{self, Baseline, Rule, RuleSet};
 use crate::log::{ColumnSpec, LogReader, Progress, ReadOptions};
 use crate::report::{self, Format};
+use crate::sweep::{self, Over, SweepConfig};
 use crate::{inspect, output};
 use clap::{Args, Parser, Subcommand, ValueEnum};
 
@@ -43,6 +44,8 @@ pub enum Command {
     Inspect(InspectArgs),
     /// Compare policy-gradient estimators on a log: variance, bias, MSE, SNR, ESS
     Audit(AuditArgs),
+    /// Sweep lambda, n or gamma: the bias-variance curve and the MSE-optimal setting
+    Sweep(SweepArgs),
     /// Audit a log and check rules on the result: exit 1 when one fails (for CI)
     Gate(GateArgs),
 }
@@ -155,6 +158,85 @@ pub struct AuditArgs {
     /// Write the report here (atomically) instead of stdout
     #[arg(long, value_name = "FILE", default_value = "-")]
     pub out: String,
+
+    /// Also draw each estimator's MSE split into bias^2 and variance, as SVG
+    #[arg(long, value_name = "FILE.svg")]
+    pub plot: Option<String>,
+}
+
+#[derive(Debug, Clone, Copy, ValueEnum)]
+pub enum SweepOver {
+    /// GAE(lambda) over lambda in [0, 1]
+    Lambda,
+    /// n-step advantages over the window n
+    Nstep,
+    /// an estimator over the discount gamma (the reference stays undiscounted)
+    Gamma,
+}
+
+#[derive(Debug, Args)]
+#[command(
+    after_help = "Default grids: lambda 0:1:0.05; nstep 1,2,4,8,16,32,64,full; gamma \
+    0.9,0.95,0.97,0.99,0.995,1. A grid is a comma list or start:stop:step.\n\
+    Example: gradaudit sweep rollouts.csv --over lambda --plot lambda.svg"
+)]
+pub struct SweepArgs {
+    #[command(flatten)]
+    pub log: LogArgs,
+
+    #[command(flatten)]
+    pub audit: AuditOptions,
+
+    /// The parameter to sweep
+    #[arg(long, value_enum)]
+    pub over: SweepOver,
+
+    /// Grid points: a comma list or start:stop:step (nstep also takes `full`)
+    #[arg(long, value_name = "SPEC")]
+    pub grid: Option<String>,
+
+    /// The estimator swept over gamma
+    #[arg(long, default_value = "rtg_discounted", value_name = "NAME")]
+    pub estimator: String,
+
+    /// Output format
+    #[arg(long, value_enum, default_value_t = AuditFormat::Table)]
+    pub format: AuditFormat,
+
+    /// Write the report here (atomically) instead of stdout
+    #[arg(long, value_name = "FILE", default_value = "-")]
+    pub out: String,
+
+    /// Also draw bias^2, variance and MSE against the swept parameter, as SVG
+    #[arg(long, value_name = "FILE.svg")]
+    pub plot: Option<String>,
+}
+
+impl SweepArgs {
+    pub fn config(&self) -> Result<SweepConfig> {
+        if self.audit.estimators.is_some() {
+            return Err(Error::usage(
+                "sweep takes --grid (and --estimator for gamma sweeps), not --estimators",
+            ));
+        }
+        let audit = self.audit.config()?;
+        let over = match self.over {
+            SweepOver::Lambda => Over::Lambda,
+            SweepOver::Nstep => Over::Nstep,
+            SweepOver::Gamma => Over::Gamma,
+        };
+        let family = Estimator::parse(&self.estimator)
+            .map_err(|e| Error::usage(format!("--estimator {e}")))?;
+        let spec = self.grid.as_deref().unwrap_or(over.default_grid());
+        let grid = sweep::parse_grid(over, spec, family, audit.gamma)
+            .map_err(|e| Error::usage(format!("--grid {e}")))?;
+        Ok(SweepConfig {
+            audit,
+            over,
+            grid,
+            family,
+        })
+    }
 }
 
 impl LogArgs {
@@ -330,8 +412,32 @@ pub fn run(cli: Cli) -> Result<u8> {
         Command::Audit(a) => {
             let cfg = a.audit.config()?;
             output::check_writable(&a.out)?;
+            if let Some(p) = &a.plot {
+                output::check_writable(p)?;
+            }
             let report = audit::run(a.log.open()?, &cfg)?;
             output::write(&a.out, &report::render(&report, a.format()))?;
+            if let Some(p) = &a.plot {
+                output::write(p, &report::svg::audit_bars(&report).map_err(Error::usage)?)?;
+            }
+        }
+        Command::Sweep(s) => {
+            let cfg = s.config()?;
+            output::check_writable(&s.out)?;
+            if let Some(p) = &s.plot {
+                output::check_writable(p)?;
+            }
+            let report = sweep::run(s.log.open()?, &cfg)?;
+            let text = match s.format {
+                AuditFormat::Table => report::sweep::render_table(&report),
+                AuditFormat::Json => report::sweep::render_json(&report),
+                AuditFormat::Csv => report::sweep::render_csv(&report),
+                AuditFormat::Markdown => report::sweep::render_markdown(&report),
+            };
+            output::write(&s.out, &text)?;
+            if let Some(p) = &s.plot {
+                output::write(p, &report::svg::sweep_plot(&report).map_err(Error::usage)?)?;
+            }
         }
         Command::Gate(g) => {
             let mut cfg = g.audit.config()?;

@@ -8,6 +8,11 @@
 //! S = sum_t G_t s_t, H = sum_t s_t, A = sum_t G_t, Q = sum_t G_t^2 and T = episode length.
 //! With weights w: b(w) = sum w A / sum w T, and the mean-baseline gradient is
 //! (sum w S - b sum w H) / sum w; whitening divides it by sd(w) = sqrt(sum w Q / sum w T - b^2).
+//!
+//! Optionally ([`Plan::with_moments`]) two scalars per per-episode estimator follow:
+//! q = ||g_k||^2 and r = ||g_k - g_ref||^2. From their weighted means the ideal-bootstrap
+//! variance of any replicate is exact: (mean_w q - ||mean_w g_k||^2) / N, and likewise for the
+//! paired difference, so a replicate's own MSE estimate needs no second bootstrap level.
 
 use crate::episode::Episode;
 use crate::estimator::{Estimator, Scratch, scan};
@@ -24,8 +29,13 @@ pub enum GradNote {
 #[derive(Debug, Clone)]
 pub struct Plan {
     pub estimators: Vec<Estimator>,
+    /// Discount of each estimator (the sweep over gamma gives them different ones).
+    pub gammas: Vec<f64>,
+    /// Discount of the auxiliary block (batch-dependent estimators).
     pub gamma: f64,
     pub d: usize,
+    /// Start of the moment columns and the reference they are paired with.
+    moments: Option<(usize, usize)>,
     /// Column offset of each estimator's per-episode gradient, or None for batch-dependent.
     offsets: Vec<Option<usize>>,
     /// Start of the auxiliary block, when present.
@@ -35,6 +45,14 @@ pub struct Plan {
 
 impl Plan {
     pub fn new(estimators: Vec<Estimator>, gamma: f64, d: usize) -> Plan {
+        let gammas = vec![gamma; estimators.len()];
+        Plan::with_gammas(estimators, gammas, gamma, d)
+    }
+
+    /// A plan whose estimators have their own discounts; `gamma` is that of the batch-dependent
+    /// ones.
+    pub fn with_gammas(estimators: Vec<Estimator>, gammas: Vec<f64>, gamma: f64, d: usize) -> Plan {
+        assert_eq!(estimators.len(), gammas.len());
         let mut next = 0;
         let offsets = estimators
             .iter()
@@ -52,12 +70,33 @@ impl Plan {
         let width = next + if aux.is_some() { 2 * d + 3 } else { 0 };
         Plan {
             estimators,
+            gammas,
             gamma,
             d,
+            moments: None,
             offsets,
             aux,
             width,
         }
+    }
+
+    /// Adds the moment columns (q, r per per-episode estimator, paired with `reference`).
+    pub fn with_moments(mut self, reference: usize) -> Plan {
+        assert!(
+            self.offsets[reference].is_some(),
+            "the reference is a per-episode estimator"
+        );
+        self.moments = Some((self.width, reference));
+        self.width += 2 * self.estimators.len();
+        self
+    }
+
+    /// Weighted means of q = ||g_k||^2 and r = ||g_k - g_ref||^2 for estimator k, when planned
+    /// and k is a per-episode estimator.
+    pub fn moments(&self, k: usize, mean: &[f64]) -> Option<(f64, f64)> {
+        let (start, _) = self.moments?;
+        self.offsets[k]?;
+        Some((mean[start + 2 * k], mean[start + 2 * k + 1]))
     }
 
     /// Length of one contribution row.
@@ -71,13 +110,34 @@ impl Plan {
         debug_assert_eq!(ep.score_dim, self.d);
         row.fill(0.0);
         let d = self.d;
-        scan::discounted_returns(&ep.rewards, self.gamma, &mut work.g);
-        for (e, off) in self.estimators.iter().zip(&self.offsets) {
+        let mut g_gamma = None;
+        for ((e, off), &gamma) in self.estimators.iter().zip(&self.offsets).zip(&self.gammas) {
             let Some(off) = *off else { continue };
-            e.psi(ep, self.gamma, &work.g, &mut work.scratch, &mut work.psi);
+            if g_gamma != Some(gamma) {
+                scan::discounted_returns(&ep.rewards, gamma, &mut work.g);
+                g_gamma = Some(gamma);
+            }
+            e.psi(ep, gamma, &work.g, &mut work.scratch, &mut work.psi);
             accumulate(&work.psi, &ep.scores, d, &mut row[off..off + d]);
         }
+        if let Some((start, reference)) = self.moments {
+            let r_off = self.offsets[reference].expect("checked in with_moments");
+            for (k, off) in self.offsets.iter().enumerate() {
+                let Some(off) = *off else { continue };
+                let (mut q, mut r) = (0.0, 0.0);
+                for j in 0..d {
+                    let x = row[off + j];
+                    q += x * x;
+                    r += (x - row[r_off + j]).powi(2);
+                }
+                row[start + 2 * k] = q;
+                row[start + 2 * k + 1] = r;
+            }
+        }
         if let Some(aux) = self.aux {
+            if g_gamma != Some(self.gamma) {
+                scan::discounted_returns(&ep.rewards, self.gamma, &mut work.g);
+            }
             accumulate(&work.g, &ep.scores, d, &mut row[aux..aux + d]);
             work.psi.clear();
             work.psi.resize(ep.len(), 1.0);

@@ -20,3 +20,6 @@ pub mod output;
 pub mod report;
 pub mod resample;
 pub mod stats;
+pub mod sweep;
+#[cfg(test)]
+mod testkit;

@@ -3,7 +3,6 @@
 //! to have in practice.
 
 use super::*;
-use crate::log::{Progress, ReadOptions};
 use crate::report::AuditReport;
 use rand::SeedableRng;
 use rand_distr::{Distribution, StandardNormal};
@@ -13,18 +12,7 @@ use std::fmt::Write;
 const EXACT: f64 = 1e-9;
 
 fn audit_text(text: &str, cfg: &AuditConfig) -> AuditReport {
-    let opts = ReadOptions {
-        progress: Progress::Hidden,
-        ..ReadOptions::default()
-    };
-    let reader = LogReader::from_reader(
-        Box::new(std::io::Cursor::new(text.as_bytes().to_vec())),
-        "test.csv",
-        &opts,
-        None,
-    )
-    .expect("valid log");
-    run(reader, cfg).expect("audit runs")
+    run(crate::testkit::reader(text), cfg).expect("audit runs")
 }
 
 fn cfg(estimators: &str, gamma: f64) -> AuditConfig {

@@ -6,6 +6,8 @@ pub mod csv;
 pub mod gate;
 pub mod inspect;
 pub mod markdown;
+pub mod svg;
+pub mod sweep;
 pub mod table;
 
 use crate::stats::{EstimatorStats, Interval};

@@ -6,3 +6,4 @@ mod audit;
 mod bad_input;
 mod gate;
 mod inspect;
+mod sweep;

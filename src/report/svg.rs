@@ -1,0 +1,251 @@
+//! SVG plots drawn with plotters: the sweep's bias-variance curves and the audit's MSE split
+//! into bias^2 and variance. Text is emitted as SVG text elements, so no font library is needed.
+
+use super::AuditReport;
+use crate::sweep::SweepReport;
+use plotters::coord::ranged1d::SegmentValue;
+use plotters::prelude::*;
+
+const BIAS: RGBColor = RGBColor(200, 60, 40);
+const VARIANCE: RGBColor = RGBColor(40, 90, 200);
+const MSE: RGBColor = RGBColor(20, 20, 20);
+const BAND: RGBColor = RGBColor(60, 170, 90);
+
+fn failed<E: std::fmt::Debug>(e: E) -> String {
+    format!("could not draw the plot: {e:?}")
+}
+
+/// The sweep's bias^2, variance and MSE against the swept parameter, log scale, with the
+/// one-standard-error band shaded and the recommended point circled.
+pub fn sweep_plot(r: &SweepReport) -> Result<String, String> {
+    let p = r.points.len();
+    let values: Vec<f64> = r
+        .points
+        .iter()
+        .flat_map(|q| [q.bias_sq, q.variance, q.mse])
+        .filter(|x| *x > 0.0)
+        .collect();
+    let lo = values.iter().copied().fold(f64::INFINITY, f64::min);
+    let hi = values.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+    let (lo, hi) = if lo.is_finite() {
+        (lo / 2.0, hi * 2.0)
+    } else {
+        (1e-3, 1.0)
+    };
+    // Zero values cannot sit on a log axis: they are drawn on its floor (said in the caption).
+    let y = |v: f64| v.max(lo);
+    let over = r.settings.over;
+    let x_desc = match over {
+        crate::sweep::Over::Lambda => "GAE lambda (dimensionless)",
+        crate::sweep::Over::Nstep => "n-step window n (steps)",
+        crate::sweep::Over::Gamma => "discount gamma (dimensionless)",
+    };
+    let labels: Vec<String> = r.points.iter().map(|q| q.label.clone()).collect();
+    let mut svg = String::new();
+    {
+        let root = SVGBackend::with_string(&mut svg, (960, 560)).into_drawing_area();
+        root.fill(&WHITE).map_err(failed)?;
+        let title = format!(
+            "gradaudit sweep over {} ({} episodes; zero values drawn on the floor)",
+            over.key(),
+            r.input.episodes
+        );
+        let mut chart = ChartBuilder::on(&root)
+            .caption(title, ("sans-serif", 18))
+            .margin(16)
+            .x_label_area_size(50)
+            .y_label_area_size(90)
+            .build_cartesian_2d(
+                (0..p.saturating_sub(1)).into_segmented(),
+                (lo..hi).log_scale(),
+            )
+            .map_err(failed)?;
+        chart
+            .configure_mesh()
+            .disable_x_mesh()
+            .x_labels(p)
+            .x_label_formatter(&|v| match v {
+                SegmentValue::CenterOf(i) | SegmentValue::Exact(i) => {
+                    labels.get(*i).cloned().unwrap_or_default()
+                }
+                SegmentValue::Last => String::new(),
+            })
+            .x_desc(x_desc)
+            .y_desc("squared error of one update (gradient units squared)")
+            .draw()
+            .map_err(failed)?;
+        let band = &r.choice.band;
+        let (a, b) = (band[0], band[band.len() - 1] + 1);
+        let right = if b >= p {
+            SegmentValue::Last
+        } else {
+            SegmentValue::Exact(b)
+        };
+        chart
+            .draw_series(std::iter::once(Rectangle::new(
+                [(SegmentValue::Exact(a), lo), (right, hi)],
+                BAND.mix(0.15).filled(),
+            )))
+            .map_err(failed)?
+            .label("within one standard error of the minimum")
+            .legend(|(x, y)| Rectangle::new([(x, y - 5), (x + 20, y + 5)], BAND.mix(0.3).filled()));
+        type Figure = fn(&crate::sweep::SweepPoint) -> f64;
+        let series: [(&str, RGBColor, u32, Figure); 3] = [
+            ("bias^2", BIAS, 2, |q| q.bias_sq),
+            ("variance", VARIANCE, 2, |q| q.variance),
+            ("MSE", MSE, 3, |q| q.mse),
+        ];
+        for (name, color, width, f) in series {
+            let pts: Vec<(SegmentValue<usize>, f64)> = r
+                .points
+                .iter()
+                .enumerate()
+                .map(|(i, q)| (SegmentValue::CenterOf(i), y(f(q))))
+                .collect();
+            chart
+                .draw_series(LineSeries::new(pts.clone(), color.stroke_width(width)))
+                .map_err(failed)?
+                .label(name)
+                .legend(move |(x, y)| {
+                    PathElement::new(vec![(x, y), (x + 20, y)], color.stroke_width(width))
+                });
+            chart
+                .draw_series(pts.into_iter().map(|pt| Circle::new(pt, 3, color.filled())))
+                .map_err(failed)?;
+        }
+        let rec = r.choice.recommended;
+        chart
+            .draw_series(std::iter::once(Circle::new(
+                (SegmentValue::CenterOf(rec), y(r.points[rec].mse)),
+                9,
+                BAND.stroke_width(3),
+            )))
+            .map_err(failed)?
+            .label(format!(
+                "recommended: {} = {}",
+                over.key(),
+                r.points[rec].label
+            ))
+            .legend(|(x, y)| Circle::new((x + 10, y), 6, BAND.stroke_width(3)));
+        chart
+            .configure_series_labels()
+            // The lower left is where the curves rarely go: small errors at small parameters.
+            .position(SeriesLabelPosition::LowerLeft)
+            .background_style(WHITE.mix(0.85))
+            .border_style(BLACK)
+            .draw()
+            .map_err(failed)?;
+        root.present().map_err(failed)?;
+    }
+    Ok(svg)
+}
+
+/// The audit's estimators as horizontal bars, MSE split into bias^2 and variance.
+pub fn audit_bars(r: &AuditReport) -> Result<String, String> {
+    let rows = &r.estimators;
+    let n = rows.len();
+    let max = rows
+        .iter()
+        .map(|e| e.mse)
+        .fold(0.0, f64::max)
+        .max(f64::MIN_POSITIVE)
+        * 1.05;
+    let names: Vec<String> = rows
+        .iter()
+        .map(|e| {
+            if e.reference {
+                format!("{} (ref)", e.name)
+            } else {
+                e.name.clone()
+            }
+        })
+        .collect();
+    let mut svg = String::new();
+    {
+        let height = (60 + 28 * n).max(240) as u32;
+        let root = SVGBackend::with_string(&mut svg, (900, height)).into_drawing_area();
+        root.fill(&WHITE).map_err(failed)?;
+        let mut chart = ChartBuilder::on(&root)
+            .caption(
+                format!(
+                    "gradaudit audit: MSE = bias^2 + variance ({} episodes)",
+                    r.input.episodes
+                ),
+                ("sans-serif", 18),
+            )
+            .margin(16)
+            .x_label_area_size(45)
+            .y_label_area_size(130)
+            .build_cartesian_2d(0.0..max, (0..n.saturating_sub(1)).into_segmented())
+            .map_err(failed)?;
+        chart
+            .configure_mesh()
+            .disable_y_mesh()
+            .y_labels(n)
+            .y_label_formatter(&|v| match v {
+                // Row 0 is drawn at the bottom; the lowest-MSE estimator goes on top.
+                SegmentValue::CenterOf(i) | SegmentValue::Exact(i) => names
+                    .get(n.wrapping_sub(1).wrapping_sub(*i))
+                    .cloned()
+                    .unwrap_or_default(),
+                SegmentValue::Last => String::new(),
+            })
+            .x_desc("squared error of one update (gradient units squared)")
+            .draw()
+            .map_err(failed)?;
+        let bar = |i: usize, from: f64, to: f64, color: RGBColor, opacity: f64| {
+            let row = n - 1 - i;
+            let top = if row + 1 >= n {
+                SegmentValue::Last
+            } else {
+                SegmentValue::Exact(row + 1)
+            };
+            let mut r = Rectangle::new(
+                [(from, SegmentValue::Exact(row)), (to, top)],
+                color.mix(opacity).filled(),
+            );
+            r.set_margin(3, 3, 0, 0);
+            r
+        };
+        // A bias that resampling noise could explain is drawn pale (the table's '?').
+        chart
+            .draw_series(
+                rows.iter()
+                    .enumerate()
+                    .filter(|(_, e)| e.bias_detected)
+                    .map(|(i, e)| bar(i, 0.0, e.bias_sq, BIAS, 0.85)),
+            )
+            .map_err(failed)?
+            .label("bias^2")
+            .legend(|(x, y)| Rectangle::new([(x, y - 5), (x + 20, y + 5)], BIAS.filled()));
+        chart
+            .draw_series(
+                rows.iter()
+                    .enumerate()
+                    .filter(|(_, e)| !e.bias_detected)
+                    .map(|(i, e)| bar(i, 0.0, e.bias_sq, BIAS, 0.3)),
+            )
+            .map_err(failed)?
+            .label("bias^2 within resampling noise (may be 0)")
+            .legend(|(x, y)| Rectangle::new([(x, y - 5), (x + 20, y + 5)], BIAS.mix(0.3).filled()));
+        chart
+            .draw_series(
+                rows.iter()
+                    .enumerate()
+                    .map(|(i, e)| bar(i, e.bias_sq, e.mse, VARIANCE, 0.85)),
+            )
+            .map_err(failed)?
+            .label("variance")
+            .legend(|(x, y)| Rectangle::new([(x, y - 5), (x + 20, y + 5)], VARIANCE.filled()));
+        chart
+            .configure_series_labels()
+            // The lowest-MSE (shortest) bars are on top, so the upper right stays clear.
+            .position(SeriesLabelPosition::UpperRight)
+            .background_style(WHITE.mix(0.85))
+            .border_style(BLACK)
+            .draw()
+            .map_err(failed)?;
+        root.present().map_err(failed)?;
+    }
+    Ok(svg)
+}

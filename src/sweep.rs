@@ -1,0 +1,450 @@
+//! `sweep`: one estimator family evaluated over a grid of lambda, n or gamma from a single pass
+//! over the log and one shared set of resamples, so the grid points are comparable. Reports the
+//! bias-variance curve, the MSE-optimal point, the points within one bootstrap standard error
+//! of it, and the most conservative (least biased) of those.
+
+use crate::audit::{self, AuditConfig, Resampled};
+use crate::contrib::Plan;
+use crate::error::{Error, Result};
+use crate::estimator::Estimator;
+use crate::log::{LogReader, Role};
+use crate::report::{InputSummary, Tool};
+use crate::stats::{self, Interval, StatsConfig, percentile};
+use crate::warnings::Warnings;
+use serde::Serialize;
+
+/// The swept parameter.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Over {
+    Lambda,
+    Nstep,
+    Gamma,
+}
+
+impl Over {
+    pub fn key(self) -> &'static str {
+        match self {
+            Over::Lambda => "lambda",
+            Over::Nstep => "nstep",
+            Over::Gamma => "gamma",
+        }
+    }
+
+    /// The default grid, as a spec.
+    pub fn default_grid(self) -> &'static str {
+        match self {
+            Over::Lambda => "0:1:0.05",
+            Over::Nstep => "1,2,4,8,16,32,64,full",
+            Over::Gamma => "0.9,0.95,0.97,0.99,0.995,1",
+        }
+    }
+
+    /// Which way is conservative, said once in every report.
+    pub fn conservative_side(self) -> &'static str {
+        match self {
+            Over::Lambda => "larger lambda trusts the critic less",
+            Over::Nstep => "a longer window trusts the critic less",
+            Over::Gamma => "a gamma nearer 1 discounts the objective less",
+        }
+    }
+}
+
+/// One grid point: its label, its numeric value and the estimator it stands for.
+#[derive(Debug, Clone, PartialEq)]
+pub struct GridPoint {
+    pub label: String,
+    pub value: f64,
+    pub estimator: Estimator,
+    pub gamma: f64,
+}
+
+/// Values like 0.15000000000000002 from start + i * step are rounded to 10 decimals.
+fn tidy(x: f64) -> f64 {
+    (x * 1e10).round() / 1e10
+}
+
+fn parse_values(spec: &str) -> Result<Vec<String>, String> {
+    let spec = spec.trim();
+    let parts: Vec<&str> = spec.split(':').collect();
+    if parts.len() == 3 {
+        let num = |t: &str| {
+            t.trim()
+                .parse::<f64>()
+                .map_err(|_| format!("'{t}' is not a number"))
+        };
+        let (a, b, step) = (num(parts[0])?, num(parts[1])?, num(parts[2])?);
+        let ordered = step > 0.0 && b >= a && a.is_finite() && b.is_finite();
+        if !ordered {
+            return Err(format!(
+                "'{spec}': use start:stop:step with stop >= start and step > 0"
+            ));
+        }
+        let count = ((b - a) / step + 1e-9).floor() as usize + 1;
+        if count > 10_000 {
+            return Err(format!("'{spec}' makes {count} points; at most 10000"));
+        }
+        return Ok((0..count)
+            .map(|i| format!("{}", tidy(a + i as f64 * step)))
+            .collect());
+    }
+    let out: Vec<String> = spec
+        .split(',')
+        .map(|p| p.trim().to_string())
+        .filter(|p| !p.is_empty())
+        .collect();
+    if out.is_empty() {
+        return Err("the grid is empty".into());
+    }
+    Ok(out)
+}
+
+/// Parses a grid spec (a comma list, or start:stop:step) for `over`. `family` is the estimator
+/// swept over gamma; `gamma` the discount of lambda and n sweeps.
+pub fn parse_grid(
+    over: Over,
+    spec: &str,
+    family: Estimator,
+    gamma: f64,
+) -> Result<Vec<GridPoint>, String> {
+    let values = parse_values(spec)?;
+    let mut grid = Vec::new();
+    for text in values {
+        let point = match over {
+            Over::Lambda => {
+                let l: f64 = text
+                    .parse()
+                    .map_err(|_| format!("lambda '{text}' is not a number"))?;
+                if !(0.0..=1.0).contains(&l) {
+                    return Err(format!("lambda {text} must lie in [0, 1]"));
+                }
+                GridPoint {
+                    label: format!("{l}"),
+                    value: l,
+                    estimator: Estimator::Gae(l),
+                    gamma,
+                }
+            }
+            Over::Nstep if matches!(text.as_str(), "full" | "inf") => GridPoint {
+                // The full return: nstep:N for N >= T equals gae:1 (GAE paper identity).
+                label: "full".into(),
+                value: f64::INFINITY,
+                estimator: Estimator::Gae(1.0),
+                gamma,
+            },
+            Over::Nstep => {
+                let n: usize =
+                    text.parse().ok().filter(|n| *n >= 1).ok_or_else(|| {
+                        format!("n '{text}' must be a whole number >= 1, or 'full'")
+                    })?;
+                GridPoint {
+                    label: n.to_string(),
+                    value: n as f64,
+                    estimator: Estimator::NStep(n),
+                    gamma,
+                }
+            }
+            Over::Gamma => {
+                let g: f64 = text
+                    .parse()
+                    .map_err(|_| format!("gamma '{text}' is not a number"))?;
+                if !(0.0..=1.0).contains(&g) {
+                    return Err(format!("gamma {text} must lie in [0, 1]"));
+                }
+                GridPoint {
+                    label: format!("{g}"),
+                    value: g,
+                    estimator: family,
+                    gamma: g,
+                }
+            }
+        };
+        if grid.iter().any(|p: &GridPoint| p.label == point.label) {
+            return Err(format!("grid point {} appears twice", point.label));
+        }
+        grid.push(point);
+    }
+    grid.sort_by(|a, b| a.value.total_cmp(&b.value));
+    Ok(grid)
+}
+
+#[derive(Debug, Clone, PartialEq)]
+pub struct SweepConfig {
+    /// Gamma (for lambda and n sweeps), reference, resamples, seed, confidence, target snr.
+    pub audit: AuditConfig,
+    pub over: Over,
+    pub grid: Vec<GridPoint>,
+    /// The estimator swept over gamma (rtg_discounted by default).
+    pub family: Estimator,
+}
+
+/// One grid point's figures.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct SweepPoint {
+    pub label: String,
+    /// The parameter value; null for n = full.
+    pub value: Option<f64>,
+    pub estimator: String,
+    pub gamma: f64,
+    pub bias_sq: f64,
+    pub bias_detected: bool,
+    pub variance: f64,
+    pub mse: f64,
+    /// Bootstrap standard error of the MSE estimate.
+    pub mse_se: Option<f64>,
+    pub mse_interval: Option<Interval>,
+    pub snr: Option<f64>,
+    pub ess: Option<f64>,
+    pub episodes_for_snr: Option<u64>,
+    pub bias_limited: bool,
+    pub notes: Vec<String>,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct SweepSettings {
+    pub over: Over,
+    pub family: String,
+    pub gamma: f64,
+    pub reference: String,
+    pub resamples: usize,
+    pub seed: u64,
+    pub confidence: f64,
+    pub target_snr: f64,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Choice {
+    /// Index of the MSE-minimising point.
+    pub best: usize,
+    /// Indices of the points whose MSE is within one standard error of the minimum.
+    pub band: Vec<usize>,
+    /// Index of the recommended point: the least biased in the band.
+    pub recommended: usize,
+    pub text: String,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct SweepReport {
+    pub tool: Tool,
+    pub input: InputSummary,
+    pub settings: SweepSettings,
+    pub signal: f64,
+    pub points: Vec<SweepPoint>,
+    pub choice: Choice,
+    pub warnings: Warnings,
+}
+
+/// Runs a sweep over an opened log.
+pub fn run(reader: LogReader, cfg: &SweepConfig) -> Result<SweepReport> {
+    cfg.audit.validate()?;
+    if cfg.grid.is_empty() {
+        return Err(Error::usage("the grid is empty"));
+    }
+    let d = audit::score_dim(&reader)?;
+    let needs_value = cfg.grid.iter().any(|p| !p.estimator.needs().is_empty());
+    if needs_value && !reader.schema().has(Role::Value) {
+        return Err(Error::usage(format!(
+            "{}: sweeping {} needs the value column (a critic's V(s_t)), which the log lacks",
+            reader.file(),
+            cfg.over.key()
+        )));
+    }
+    if cfg.grid.iter().any(|p| p.estimator.batch_dependent()) {
+        return Err(Error::usage(format!(
+            "{} depends on the whole batch and cannot be swept; choose a per-episode estimator",
+            cfg.family
+        )));
+    }
+    // Entry 0 is the reference; the grid points follow in order.
+    let mut estimators = vec![cfg.audit.reference];
+    let mut gammas = vec![cfg.audit.gamma];
+    for p in &cfg.grid {
+        estimators.push(p.estimator);
+        gammas.push(p.gamma);
+    }
+    let plan = Plan::with_gammas(estimators, gammas, cfg.audit.gamma, d).with_moments(0);
+    let data = audit::collect(reader, &plan)?;
+    let n = data.contrib.nrows();
+    let mut warnings = data.warnings.clone();
+    audit::few_episodes_warning(n, &mut warnings);
+    let Resampled {
+        point,
+        replicates,
+        halves,
+    } = audit::resample_all(&data, &cfg.audit);
+    let scfg = StatsConfig {
+        episodes: n,
+        confidence: cfg.audit.confidence,
+        target_snr: cfg.audit.target_snr,
+    };
+    let (stats, signal) =
+        stats::summarise(&plan, 0, &point, replicates.view(), halves.view(), &scfg);
+
+    let alpha = 1.0 - cfg.audit.confidence;
+    let points: Vec<SweepPoint> = cfg
+        .grid
+        .iter()
+        .enumerate()
+        .map(|(i, g)| {
+            let k = i + 1;
+            let s = &stats[k];
+            // The MSE estimate inside each replicate, from its exact within-replicate variances
+            // (see contrib.rs): bias_sq_b = max(0, ||d_b||^2 - V_d,b), mse_b = bias_sq_b + V_k,b.
+            let mut mses: Vec<f64> = replicates
+                .outer_iter()
+                .map(|row| {
+                    let row = row.as_slice().expect("rows are contiguous");
+                    replicate_mse(&plan, k, 0, row, n)
+                })
+                .collect();
+            let (mse_se, mse_interval) = if mses.len() >= 2 {
+                let m = mses.iter().sum::<f64>() / mses.len() as f64;
+                let var =
+                    mses.iter().map(|x| (x - m).powi(2)).sum::<f64>() / (mses.len() - 1) as f64;
+                // The replicates' mean exceeds the estimate by about V_d (the paired squared
+                // norm's own noise), so the percentiles are shifted back by the difference.
+                let shift = m - s.mse;
+                mses.sort_by(f64::total_cmp);
+                let iv = Interval {
+                    low: (percentile(&mses, alpha / 2.0) - shift).max(0.0),
+                    high: (percentile(&mses, 1.0 - alpha / 2.0) - shift).max(0.0),
+                };
+                (Some(var.sqrt()), Some(iv))
+            } else {
+                (None, None)
+            };
+            let notes = s
+                .notes
+                .iter()
+                .filter(|n| !n.starts_with("cosine_half"))
+                .cloned()
+                .collect();
+            SweepPoint {
+                label: g.label.clone(),
+                value: g.value.is_finite().then_some(g.value),
+                estimator: g.estimator.to_string(),
+                gamma: g.gamma,
+                bias_sq: s.bias_sq,
+                bias_detected: s.bias_detected,
+                variance: s.variance,
+                mse: s.mse,
+                mse_se,
+                mse_interval,
+                snr: s.snr,
+                ess: s.ess,
+                episodes_for_snr: s.episodes_for_snr,
+                bias_limited: s.bias_limited,
+                notes,
+            }
+        })
+        .collect();
+    let choice = choose(&points, cfg.over);
+    Ok(SweepReport {
+        tool: Tool {
+            schema: "gradaudit.sweep/1",
+            ..Tool::current()
+        },
+        input: data.input,
+        settings: SweepSettings {
+            over: cfg.over,
+            family: match cfg.over {
+                Over::Lambda => "gae".into(),
+                Over::Nstep => "nstep".into(),
+                Over::Gamma => cfg.family.to_string(),
+            },
+            gamma: cfg.audit.gamma,
+            reference: cfg.audit.reference.to_string(),
+            resamples: cfg.audit.resamples,
+            seed: cfg.audit.seed,
+            confidence: cfg.audit.confidence,
+            target_snr: cfg.audit.target_snr,
+        },
+        signal: signal.signal,
+        points,
+        choice,
+        warnings,
+    })
+}
+
+/// bias_sq + variance of estimator k as estimated inside one replicate (mean row `row`).
+fn replicate_mse(plan: &Plan, k: usize, reference: usize, row: &[f64], n: usize) -> f64 {
+    let d = plan.d;
+    let (mut gk, mut gr) = (vec![0.0; d], vec![0.0; d]);
+    plan.gradient(k, row, &mut gk);
+    plan.gradient(reference, row, &mut gr);
+    let (q, r) = plan.moments(k, row).expect("sweep plans carry moments");
+    let sq: f64 = gk.iter().map(|x| x * x).sum();
+    let dist: f64 = gk.iter().zip(&gr).map(|(a, b)| (a - b).powi(2)).sum();
+    let nf = n as f64;
+    let var_k = ((q - sq) / nf).max(0.0);
+    let var_d = ((r - dist) / nf).max(0.0);
+    (dist - var_d).max(0.0) + var_k
+}
+
+/// Whether a grid point sits where its parameter ends (lambda or gamma 0 or 1, n = 1 or full).
+fn natural_limit(over: Over, p: &SweepPoint) -> bool {
+    match (over, p.value) {
+        (Over::Nstep, None) => true,
+        (Over::Nstep, Some(n)) => n == 1.0,
+        (_, Some(v)) => v == 0.0 || v == 1.0,
+        (_, None) => false,
+    }
+}
+
+/// The MSE-minimising point, the one-standard-error band around it, and the least biased point
+/// of the band (ties go to the larger parameter, the conservative side for every sweep).
+pub fn choose(points: &[SweepPoint], over: Over) -> Choice {
+    let best = (0..points.len())
+        .min_by(|&a, &b| points[a].mse.total_cmp(&points[b].mse))
+        .expect("the grid is not empty");
+    let limit = points[best].mse + points[best].mse_se.unwrap_or(0.0);
+    let band: Vec<usize> = (0..points.len())
+        .filter(|&i| points[i].mse <= limit)
+        .collect();
+    let recommended = *band
+        .iter()
+        .min_by(|&&a, &&b| {
+            points[a]
+                .bias_sq
+                .total_cmp(&points[b].bias_sq)
+                .then(b.cmp(&a))
+        })
+        .expect("the band holds the best point");
+    let (b, r) = (&points[best], &points[recommended]);
+    let mut text = format!(
+        "lowest MSE at {} = {} (mse {}); {} point(s) lie within one standard error ({})",
+        over.key(),
+        b.label,
+        crate::report::table::num(b.mse),
+        band.len(),
+        b.mse_se.map_or("n/a".into(), crate::report::table::num)
+    );
+    text.push_str(&format!(
+        "; recommended: {} = {}, the least biased of them (bias does not shrink with more \
+         episodes, variance does; {})",
+        over.key(),
+        r.label,
+        over.conservative_side()
+    ));
+    if band.len() == points.len() && points.len() > 1 {
+        text.push_str(
+            "; every grid point is within one standard error: this log cannot tell the settings \
+             apart, and more episodes would",
+        );
+    } else {
+        // An edge of the grid matters only where the parameter could go further.
+        let open_edge = |i: usize| band.contains(&i) && !natural_limit(over, &points[i]);
+        if open_edge(0) || open_edge(points.len() - 1) {
+            text.push_str("; the band reaches the edge of the grid, so a wider grid may do better");
+        }
+    }
+    Choice {
+        best,
+        band,
+        recommended,
+        text,
+    }
+}
+
+#[cfg(test)]
+mod tests;
