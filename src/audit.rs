@@ -159,7 +159,9 @@ pub struct Collected {
 /// Reads every episode, reducing each to its contribution row under `plan`. Fails with fewer
 /// than 2 episodes.
 pub fn collect(mut reader: LogReader, plan: &Plan) -> Result<Collected> {
-    let mut rows: Vec<(String, Vec<f64>)> = Vec::new();
+    let width = plan.width();
+    let mut ids: Vec<String> = Vec::new();
+    let mut flat: Vec<f64> = Vec::new();
     let mut work = Work::default();
     let mut input = InputSummary::default();
     while let Some(ep) = reader.next_episode()? {
@@ -169,14 +171,15 @@ pub fn collect(mut reader: LogReader, plan: &Plan) -> Result<Collected> {
             End::Terminated => input.terminated += 1,
             End::Truncated { .. } => input.truncated += 1,
         }
-        let mut row = vec![0.0; plan.width()];
-        plan.contribute(&ep, &mut work, &mut row);
-        rows.push((ep.id, row));
+        let start = flat.len();
+        flat.resize(start + width, 0.0);
+        plan.contribute(&ep, &mut work, &mut flat[start..]);
+        ids.push(ep.id);
     }
     input.file = reader.file().to_string();
     input.rows = reader.rows();
     input.score_dim = plan.d;
-    let n = rows.len();
+    let n = ids.len();
     if n < 2 {
         return Err(Error::usage(format!(
             "{}: the log holds {n} episode(s); an analysis needs at least 2 to estimate a variance",
@@ -184,18 +187,40 @@ pub fn collect(mut reader: LogReader, plan: &Plan) -> Result<Collected> {
         )));
     }
     // Canonical order, so the same episodes in another row order give identical numbers.
-    rows.sort_by(|a, b| id_order(&a.0, &b.0));
-    let mut contrib = Array2::<f64>::zeros((n, plan.width()));
-    for (i, (_, row)) in rows.iter().enumerate() {
-        contrib
-            .row_mut(i)
-            .assign(&ndarray::ArrayView1::from(row.as_slice()));
-    }
+    let mut order: Vec<usize> = (0..n).collect();
+    order.sort_by(|&a, &b| id_order(&ids[a], &ids[b]));
+    permute_rows(&mut flat, width, &order);
+    let contrib = Array2::from_shape_vec((n, width), flat).expect("n x width values");
     Ok(Collected {
         contrib,
         input,
         warnings: reader.warnings().clone(),
     })
+}
+
+/// Reorders the rows of a row-major `n x width` buffer in place so that new row i is old row
+/// `order[i]`, following the permutation's cycles with one spare row (no second copy of the
+/// matrix, which for large logs is the largest allocation of a run).
+fn permute_rows(flat: &mut [f64], width: usize, order: &[usize]) {
+    let mut done = vec![false; order.len()];
+    let mut spare = vec![0.0; width];
+    for start in 0..order.len() {
+        if done[start] {
+            continue;
+        }
+        spare.copy_from_slice(&flat[start * width..(start + 1) * width]);
+        let mut i = start;
+        loop {
+            done[i] = true;
+            let j = order[i];
+            if j == start {
+                flat[i * width..(i + 1) * width].copy_from_slice(&spare);
+                break;
+            }
+            flat.copy_within(j * width..(j + 1) * width, i * width);
+            i = j;
+        }
+    }
 }
 
 /// Adds the few-episodes warning when it applies.

@@ -16,6 +16,7 @@
 
 use crate::episode::Episode;
 use crate::estimator::{Estimator, Scratch, scan};
+use ndarray::ArrayView2;
 
 /// Why a gradient came out as it did, when that needs saying.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -110,15 +111,38 @@ impl Plan {
         debug_assert_eq!(ep.score_dim, self.d);
         row.fill(0.0);
         let d = self.d;
+        let t_len = ep.len();
+        // Psi of every per-episode estimator as the columns of a T x L matrix, then all
+        // gradients at once: G = Psi^T S (L x d), one matrix product instead of L loops.
+        let linear: Vec<(usize, usize)> = self
+            .offsets
+            .iter()
+            .enumerate()
+            .filter_map(|(k, off)| off.map(|o| (k, o)))
+            .collect();
+        work.psis.clear();
+        work.psis.resize(t_len * linear.len(), 0.0);
         let mut g_gamma = None;
-        for ((e, off), &gamma) in self.estimators.iter().zip(&self.offsets).zip(&self.gammas) {
-            let Some(off) = *off else { continue };
+        for (col, &(k, _)) in linear.iter().enumerate() {
+            let gamma = self.gammas[k];
             if g_gamma != Some(gamma) {
                 scan::discounted_returns(&ep.rewards, gamma, &mut work.g);
                 g_gamma = Some(gamma);
             }
-            e.psi(ep, gamma, &work.g, &mut work.scratch, &mut work.psi);
-            accumulate(&work.psi, &ep.scores, d, &mut row[off..off + d]);
+            self.estimators[k].psi(ep, gamma, &work.g, &mut work.scratch, &mut work.psi);
+            for (t, p) in work.psi.iter().enumerate() {
+                work.psis[t * linear.len() + col] = *p;
+            }
+        }
+        if !linear.is_empty() && t_len > 0 {
+            let psi = ArrayView2::from_shape((t_len, linear.len()), &work.psis).expect("T x L");
+            let scores = ArrayView2::from_shape((t_len, d), &ep.scores).expect("T x d");
+            let grads = psi.t().dot(&scores);
+            for (col, &(_, off)) in linear.iter().enumerate() {
+                for (o, x) in row[off..off + d].iter_mut().zip(grads.row(col)) {
+                    *o = *x;
+                }
+            }
         }
         if let Some((start, reference)) = self.moments {
             let r_off = self.offsets[reference].expect("checked in with_moments");
@@ -198,5 +222,6 @@ fn accumulate(psi: &[f64], scores: &[f64], d: usize, out: &mut [f64]) {
 pub struct Work {
     g: Vec<f64>,
     psi: Vec<f64>,
+    psis: Vec<f64>,
     scratch: Scratch,
 }

@@ -409,3 +409,17 @@ fn same_numbers_with_one_and_two_threads() {
     };
     assert_eq!(run_with(1), run_with(2));
 }
+
+#[test]
+fn rows_are_permuted_in_place() {
+    // Rows 0..5 of width 2 holding (r, 10 r); order [3, 0, 4, 1, 2] (two cycles plus moves).
+    let mut flat: Vec<f64> = (0..5).flat_map(|r| [r as f64, 10.0 * r as f64]).collect();
+    permute_rows(&mut flat, 2, &[3, 0, 4, 1, 2]);
+    assert_eq!(
+        flat,
+        vec![3.0, 30.0, 0.0, 0.0, 4.0, 40.0, 1.0, 10.0, 2.0, 20.0]
+    );
+    let mut same = vec![1.0, 2.0];
+    permute_rows(&mut same, 1, &[0, 1]);
+    assert_eq!(same, vec![1.0, 2.0]);
+}

@@ -1,9 +1,16 @@
 //! The rollout-log reader: CSV rows (one per step, episodes possibly interleaved) in, finished
-//! episodes out, one at a time. Memory is bounded by the episodes still open, never by the file.
-//! Every malformed field is an error naming file, line and column.
+//! episodes out, one at a time. Memory is bounded by the episodes still open and a few blocks
+//! of input, never by the file. Every malformed field is an error naming file, line and column.
+//!
+//! Blocks of whole records are cut sequentially ([`chunks`]), parsed in parallel ([`rows`]),
+//! and assembled into episodes sequentially in file order, so results and the first error
+//! reported do not depend on the thread count.
 
+pub mod chunks;
 pub mod columns;
 pub mod fields;
+mod pipeline;
+pub mod rows;
 pub mod source;
 
 pub use columns::{Assignment, ColumnSpec, Role, Schema};
@@ -12,11 +19,13 @@ pub use source::Progress;
 use crate::episode::{End, Episode, Layout};
 use crate::error::{Error, Position, Result};
 use crate::warnings::Warnings;
-use csv::ByteRecord;
-use fields::FieldProblem;
+use chunks::Chunker;
 use indicatif::ProgressBar;
-use std::collections::HashMap;
+use pipeline::{Item, Pipeline};
+use rows::{Parsed, Row, RowParser};
+use std::collections::{HashMap, VecDeque};
 use std::io::Read;
+use std::sync::Arc;
 
 /// How to read a log.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -43,16 +52,21 @@ struct Open {
 
 /// Streaming reader. Call [`LogReader::next_episode`] until it returns `Ok(None)`.
 pub struct LogReader {
-    csv: csv::Reader<Box<dyn Read>>,
+    /// Reads and parses ahead on its own thread; None once stopped.
+    pipeline: Option<Pipeline>,
+    parser: Arc<RowParser>,
     file: String,
     schema: Schema,
     layout: Layout,
     has_end_flags: bool,
-    record: ByteRecord,
+    /// Parsed blocks not yet assembled, and the position in the first of them.
+    pending: VecDeque<Parsed>,
+    cursor: usize,
     open: HashMap<Vec<u8>, Open>,
     /// Ids of finished episodes and the line that ended each, to detect a reused id.
     ended: HashMap<Vec<u8>, u64>,
     leftovers: Vec<Episode>,
+    input_done: bool,
     at_eof: bool,
     compressed: bool,
     rows: u64,
@@ -88,22 +102,14 @@ impl LogReader {
 
     /// Reads from any byte source; `file` is the name used in messages.
     pub fn from_reader(
-        input: Box<dyn Read>,
+        input: Box<dyn Read + Send>,
         file: &str,
         options: &ReadOptions,
         bar: Option<ProgressBar>,
     ) -> Result<Self> {
-        let mut csv = csv::ReaderBuilder::new()
-            .delimiter(options.delimiter)
-            .has_headers(false)
-            .flexible(true)
-            .buffer_capacity(1 << 16)
-            .from_reader(input);
-        let mut header = ByteRecord::new();
-        let got = csv
-            .read_byte_record(&mut header)
-            .map_err(|e| csv_error(file, e))?;
-        if !got {
+        let mut chunker = Chunker::new(input);
+        let first = chunker.next_block().map_err(|e| io_error(file, e, None))?;
+        let Some(first) = first else {
             return Err(Error::input_hint(
                 Position {
                     file: file.into(),
@@ -112,7 +118,26 @@ impl LogReader {
                 "the file is empty",
                 "a log starts with a header row such as: episode,step,reward,terminated,truncated,score_0",
             ));
-        }
+        };
+        // The header is the first record of the first block.
+        let mut csv = csv::ReaderBuilder::new()
+            .delimiter(options.delimiter)
+            .has_headers(false)
+            .flexible(true)
+            .from_reader(first.bytes.as_slice());
+        let mut header = csv::ByteRecord::new();
+        csv.read_byte_record(&mut header).map_err(|e| {
+            Error::input(
+                Position {
+                    file: file.into(),
+                    line: Some(1),
+                    column: None,
+                },
+                format!("cannot read the header row: {:?}", e.kind()),
+            )
+        })?;
+        let data_start = csv.position().byte() as usize;
+        let data_line = csv.position().line();
         let mut headers = Vec::with_capacity(header.len());
         for (i, h) in header.iter().enumerate() {
             // A UTF-8 byte-order mark before the first header is accepted and dropped.
@@ -152,16 +177,23 @@ impl LogReader {
                 None,
             );
         }
+        let parser = Arc::new(RowParser::new(&schema, file, options.delimiter));
+        let mut pending = VecDeque::new();
+        pending.push_back(parser.parse(&first.bytes[data_start..], data_line));
+        chunker.recycle(first.bytes);
         Ok(LogReader {
-            csv,
+            pipeline: Some(Pipeline::start(chunker, Arc::clone(&parser))),
+            parser,
             file: file.to_string(),
             schema,
             layout,
             has_end_flags,
-            record: ByteRecord::new(),
+            pending,
+            cursor: 0,
             open: HashMap::new(),
             ended: HashMap::new(),
             leftovers: Vec::new(),
+            input_done: false,
             at_eof: false,
             compressed: false,
             rows: 0,
@@ -198,7 +230,12 @@ impl LogReader {
         let next = self.next_inner();
         match next {
             Err(e @ Error::Input(_)) if self.compressed => {
-                Err(stream_damage(&self.file, self.csv.get_mut()).unwrap_or(e))
+                let damage = self
+                    .pipeline
+                    .take()
+                    .and_then(Pipeline::stop)
+                    .and_then(|mut chunker| stream_damage(&self.file, chunker.source()));
+                Err(damage.unwrap_or(e))
             }
             other => other,
         }
@@ -206,79 +243,54 @@ impl LogReader {
 
     fn next_inner(&mut self) -> Result<Option<Episode>> {
         while !self.at_eof {
-            let got = self
-                .csv
-                .read_byte_record(&mut self.record)
-                .map_err(|e| csv_error(&self.file, e))?;
-            if !got {
-                self.finish()?;
-                break;
+            let Some(block) = self.pending.front() else {
+                let next = match &self.pipeline {
+                    Some(p) if !self.input_done => p.next(),
+                    _ => None,
+                };
+                match next {
+                    Some(Item::Block(b)) => self.pending.push_back(b),
+                    Some(Item::ReadError(e)) => return Err(io_error(&self.file, e, None)),
+                    None => {
+                        self.input_done = true;
+                        self.finish()?;
+                    }
+                }
+                continue;
+            };
+            if self.cursor == block.rows.len() {
+                let mut block = self.pending.pop_front().expect("front exists");
+                self.cursor = 0;
+                if let Some(e) = block.error.take() {
+                    return Err(e);
+                }
+                if let Some(p) = &self.pipeline {
+                    p.recycle(block);
+                }
+                continue;
             }
+            let i = self.cursor;
+            self.cursor += 1;
             self.rows += 1;
-            if let Some(done) = self.push_row()? {
-                return Ok(Some(done));
+            let block = self.pending.pop_front().expect("front exists");
+            let done = self.assemble(&block, i);
+            self.pending.push_front(block);
+            if let Some(ep) = done? {
+                return Ok(Some(ep));
             }
         }
         Ok(self.leftovers.pop())
     }
 
-    fn at(&self, line: u64, col: Option<usize>) -> Position {
-        Position {
-            file: self.file.clone(),
-            line: Some(line),
-            column: col.map(|c| (c + 1, self.schema.headers[c].clone())),
-        }
-    }
-
-    fn field_error(&self, line: u64, col: usize, problem: FieldProblem) -> Error {
-        Error::input(
-            self.at(line, Some(col)),
-            problem.describe(&self.record[col]),
-        )
-    }
-
-    fn push_row(&mut self) -> Result<Option<Episode>> {
-        let line = self.record.position().map_or(0, |p| p.line());
-        let width = self.schema.headers.len();
-        if self.record.len() != width {
-            if self.record.len() == 1 && self.record[0].is_empty() {
-                return Err(Error::input(
-                    self.at(line, None),
-                    "blank line inside the log",
-                ));
-            }
-            return Err(Error::input(
-                self.at(line, None),
-                format!(
-                    "this row has {} fields but the header has {width}",
-                    self.record.len()
-                ),
-            ));
-        }
-        let num = |s: &Self, c: usize| {
-            fields::number(&s.record[c]).map_err(|p| s.field_error(line, c, p))
-        };
-        let flag = |s: &Self, role: Role| -> Result<bool> {
-            match s.schema.column(role) {
-                Some(c) => fields::boolean(&s.record[c]).map_err(|p| s.field_error(line, c, p)),
-                None => Ok(false),
-            }
-        };
-
-        let id_col = self
-            .schema
-            .column(Role::Episode)
-            .expect("episode column is required");
-        let id = &self.record[id_col];
-        if id.trim_ascii().is_empty() {
-            return Err(Error::input(
-                self.at(line, Some(id_col)),
-                "the episode id is empty",
-            ));
-        }
+    /// Adds row `i` of `block` to its episode; returns the episode if this row ended it.
+    fn assemble(&mut self, block: &Parsed, i: usize) -> Result<Option<Episode>> {
+        let row: &Row = &block.rows[i];
+        let id = block.id(row);
+        let line = row.line;
+        let id_col = self.schema.column(Role::Episode).expect("required");
         if let Some(end_line) = self.ended.get(id) {
             return Err(Error::input_hint(
-                self.at(line, Some(id_col)),
+                self.parser.at(line, Some(id_col)),
                 format!(
                     "episode '{}' already ended at line {end_line}",
                     fields::shown(id)
@@ -287,38 +299,7 @@ impl LogReader {
                  set on a row before the episode's last one, causes this",
             ));
         }
-        let reward = num(
-            self,
-            self.schema
-                .column(Role::Reward)
-                .expect("reward is required"),
-        )?;
-        let step = match self.schema.column(Role::Step) {
-            Some(c) => {
-                Some(fields::integer(&self.record[c]).map_err(|p| self.field_error(line, c, p))?)
-            }
-            None => None,
-        };
-        let terminated = flag(self, Role::Terminated)?;
-        let truncated = flag(self, Role::Truncated)?;
-        let value = match self.schema.column(Role::Value) {
-            Some(c) => Some(num(self, c)?),
-            None => None,
-        };
-        let q = match self.schema.column(Role::Q) {
-            Some(c) => Some(num(self, c)?),
-            None => None,
-        };
-        let logp = match self.schema.column(Role::Logp) {
-            Some(c) => Some(num(self, c)?),
-            None => None,
-        };
-        let next_value = match self.schema.column(Role::NextValue) {
-            Some(c) => fields::optional_number(&self.record[c])
-                .map_err(|p| self.field_error(line, c, p))?,
-            None => None,
-        };
-
+        // Most rows continue an open episode: look it up without moving it or allocating.
         if !self.open.contains_key(id) {
             let episode =
                 Episode::new(String::from_utf8_lossy(id).into_owned(), line, &self.layout);
@@ -330,91 +311,65 @@ impl LogReader {
                 },
             );
         }
-        // Vector fields are parsed straight into the open episode's arrays.
-        let mut open = self.open.remove(id).expect("inserted above");
-        self.push_vectors(&mut open.episode, line)?;
-        if let (Some(step), Some(last)) = (step, open.last_step)
+        let open = self.open.get_mut(id).expect("inserted above");
+        if let (Some(step), Some(last)) = (row.step, open.last_step)
             && step != last + 1
         {
-            {
-                let c = self.schema.column(Role::Step).expect("step present");
-                let what = if step == last {
-                    "repeats"
-                } else {
-                    "does not follow"
-                };
-                return Err(Error::input_hint(
-                    self.at(line, Some(c)),
-                    format!(
-                        "step {step} of episode '{}' {what} the previous step {last}",
-                        open.episode.id
-                    ),
-                    "steps must increase by exactly 1 within an episode",
-                ));
+            let c = self.schema.column(Role::Step).expect("step present");
+            let what = if step == last {
+                "repeats"
+            } else {
+                "does not follow"
+            };
+            return Err(Error::input_hint(
+                self.parser.at(line, Some(c)),
+                format!(
+                    "step {step} of episode '{}' {what} the previous step {last}",
+                    open.episode.id
+                ),
+                "steps must increase by exactly 1 within an episode",
+            ));
+        }
+        open.last_step = row.step;
+        let ep = &mut open.episode;
+        let w = self.parser.vector_width();
+        let v = &block.vectors[i * w..(i + 1) * w];
+        let (d, o) = (ep.score_dim, ep.obs_dim);
+        ep.scores.extend_from_slice(&v[..d]);
+        ep.obs.extend_from_slice(&v[d..d + o]);
+        ep.act.extend_from_slice(&v[d + o..]);
+        ep.rewards.push(row.reward);
+        for (x, xs) in [
+            (row.value, ep.values.as_mut()),
+            (row.q, ep.q.as_mut()),
+            (row.logp, ep.logp.as_mut()),
+        ] {
+            if let (Some(x), Some(xs)) = (x, xs) {
+                xs.push(x);
             }
         }
-        open.last_step = step;
-        let ep = &mut open.episode;
-        ep.rewards.push(reward);
-        if let (Some(v), Some(vs)) = (value, ep.values.as_mut()) {
-            vs.push(v);
-        }
-        if let (Some(v), Some(qs)) = (q, ep.q.as_mut()) {
-            qs.push(v);
-        }
-        if let (Some(v), Some(ls)) = (logp, ep.logp.as_mut()) {
-            ls.push(v);
-        }
-        if terminated || truncated {
-            ep.end = if terminated {
+        if row.terminated || row.truncated {
+            ep.end = if row.terminated {
                 End::Terminated
             } else {
-                if next_value.is_none() {
+                if row.next_value.is_none() {
                     warn_no_bootstrap(&mut self.warnings, &ep.id, line);
                 }
                 End::Truncated {
-                    bootstrap: next_value,
+                    bootstrap: row.next_value,
                 }
             };
+            let done = self.open.remove(id).expect("open above").episode;
             self.ended.insert(id.to_vec(), line);
-            return Ok(Some(open.episode));
+            return Ok(Some(done));
         }
         // Remember the last row's bootstrap in case the log ends mid-episode.
-        open.episode.end = End::Truncated {
-            bootstrap: next_value,
+        ep.end = End::Truncated {
+            bootstrap: row.next_value,
         };
-        self.open.insert(id.to_vec(), open);
         Ok(None)
     }
 
-    fn push_vectors(&self, ep: &mut Episode, line: u64) -> Result<()> {
-        for (cols, out) in [
-            (&self.schema.scores, &mut ep.scores),
-            (&self.schema.obs, &mut ep.obs),
-            (&self.schema.act, &mut ep.act),
-        ] {
-            for &c in cols {
-                out.push(
-                    fields::number(&self.record[c]).map_err(|p| self.field_error(line, c, p))?,
-                );
-            }
-        }
-        Ok(())
-    }
-}
-
-fn warn_no_bootstrap(warnings: &mut Warnings, id: &str, line: u64) {
-    {
-        warnings.add(
-            "truncated_without_bootstrap",
-            "truncated episode without a bootstrap value (next_value on its last row): its tail \
-             value is taken as 0, which biases value-based estimators",
-            Some(format!("episode '{id}', line {line}")),
-        );
-    }
-}
-
-impl LogReader {
     fn finish(&mut self) -> Result<()> {
         self.at_eof = true;
         if let Some(bar) = &self.bar {
@@ -460,6 +415,15 @@ impl LogReader {
     }
 }
 
+fn warn_no_bootstrap(warnings: &mut Warnings, id: &str, line: u64) {
+    warnings.add(
+        "truncated_without_bootstrap",
+        "truncated episode without a bootstrap value (next_value on its last row): its tail \
+         value is taken as 0, which biases value-based estimators",
+        Some(format!("episode '{id}', line {line}")),
+    );
+}
+
 impl Iterator for LogReader {
     type Item = Result<Episode>;
     fn next(&mut self) -> Option<Self::Item> {
@@ -471,7 +435,7 @@ impl Iterator for LogReader {
 /// show (whatever the garbage before it looked like).
 fn stream_damage(file: &str, rest: &mut dyn Read) -> Option<Error> {
     match std::io::copy(rest, &mut std::io::sink()) {
-        Err(io) => match csv_error(file, csv::Error::from(io)) {
+        Err(io) => match io_error(file, io, None) {
             e @ Error::Input(_) => Some(e),
             _ => None,
         },
@@ -479,38 +443,25 @@ fn stream_damage(file: &str, rest: &mut dyn Read) -> Option<Error> {
     }
 }
 
-/// Maps a csv-crate error (an I/O or decompression failure, or invalid input) to ours.
-fn csv_error(file: &str, e: csv::Error) -> Error {
-    let line = e.position().map(|p| p.line());
-    match e.into_kind() {
-        csv::ErrorKind::Io(io) => {
-            let corrupt = matches!(
-                io.kind(),
-                std::io::ErrorKind::InvalidInput
-                    | std::io::ErrorKind::InvalidData
-                    | std::io::ErrorKind::UnexpectedEof
-            );
-            if corrupt {
-                Error::input_hint(
-                    Position {
-                        file: file.into(),
-                        line,
-                        column: None,
-                    },
-                    format!("the compressed stream is damaged or cut short: {io}"),
-                    "check that the .gz file was copied completely (gzip -t FILE)",
-                )
-            } else {
-                Error::io(file, io)
-            }
-        }
-        other => Error::input(
+/// Maps a read error: decoder failures (damaged or cut gzip) are input errors, the rest I/O.
+fn io_error(file: &str, io: std::io::Error, line: Option<u64>) -> Error {
+    let corrupt = matches!(
+        io.kind(),
+        std::io::ErrorKind::InvalidInput
+            | std::io::ErrorKind::InvalidData
+            | std::io::ErrorKind::UnexpectedEof
+    );
+    if corrupt {
+        Error::input_hint(
             Position {
                 file: file.into(),
                 line,
                 column: None,
             },
-            format!("{other:?}"),
-        ),
+            format!("the compressed stream is damaged or cut short: {io}"),
+            "check that the .gz file was copied completely (gzip -t FILE)",
+        )
+    } else {
+        Error::io(file, io)
     }
 }

@@ -28,7 +28,7 @@ pub fn display_name(path: &str) -> String {
 
 /// An opened log: the (decompressed) bytes, the progress bar, and whether it was compressed.
 pub struct Source {
-    pub reader: Box<dyn Read>,
+    pub reader: Box<dyn Read + Send>,
     pub bar: Option<ProgressBar>,
     pub compressed: bool,
 }
@@ -36,8 +36,8 @@ pub struct Source {
 /// Opens `path` for reading, decompressing gzip transparently.
 pub fn open(path: &str, progress: Progress) -> Result<Source> {
     let name = display_name(path);
-    let (raw, len): (Box<dyn Read>, Option<u64>) = if path == "-" {
-        (Box::new(io::stdin().lock()), None)
+    let (raw, len): (Box<dyn Read + Send>, Option<u64>) = if path == "-" {
+        (Box::new(io::stdin()), None)
     } else {
         let file = File::open(path).map_err(|e| Error::io(&name, e))?;
         let len = file.metadata().ok().map(|m| m.len());
@@ -54,14 +54,14 @@ pub fn open(path: &str, progress: Progress) -> Result<Source> {
         }
         _ => None,
     };
-    let counted: Box<dyn Read> = match &bar {
+    let counted: Box<dyn Read + Send> = match &bar {
         Some(bar) => Box::new(bar.wrap_read(raw)),
         None => raw,
     };
     let mut buffered = BufReader::with_capacity(1 << 16, counted);
     let magic = buffered.fill_buf().map_err(|e| Error::io(&name, e))?;
     let compressed = magic.starts_with(&[0x1f, 0x8b]);
-    let reader: Box<dyn Read> = if compressed {
+    let reader: Box<dyn Read + Send> = if compressed {
         Box::new(flate2::bufread::MultiGzDecoder::new(buffered))
     } else {
         Box::new(buffered)
