@@ -29,6 +29,8 @@ pub struct AuditConfig {
     pub target_snr: f64,
     /// Random half splits for cosine_half.
     pub splits: usize,
+    /// What the contribution matrix and the resampled rows may hold.
+    pub budget: crate::limits::Budget,
 }
 
 impl Default for AuditConfig {
@@ -42,6 +44,7 @@ impl Default for AuditConfig {
             confidence: 0.95,
             target_snr: 1.0,
             splits: 200,
+            budget: crate::limits::Budget::default(),
         }
     }
 }
@@ -158,8 +161,10 @@ pub struct Collected {
 
 /// Reads every episode, reducing each to its contribution row under `plan`. Fails with fewer
 /// than 2 episodes.
-pub fn collect(mut reader: LogReader, plan: &Plan) -> Result<Collected> {
+pub fn collect(mut reader: LogReader, plan: &Plan, cfg: &AuditConfig) -> Result<Collected> {
     let width = plan.width();
+    // Rows held after reading: contributions (N), replicates (B) and half splits (2S).
+    let fixed = (cfg.resamples + 2 * cfg.splits) as u64 * width as u64 * 8;
     let mut ids: Vec<String> = Vec::new();
     let mut flat: Vec<f64> = Vec::new();
     let mut work = Work::default();
@@ -170,6 +175,18 @@ pub fn collect(mut reader: LogReader, plan: &Plan) -> Result<Collected> {
         match ep.end {
             End::Terminated => input.terminated += 1,
             End::Truncated { .. } => input.truncated += 1,
+        }
+        let need = fixed + (ids.len() as u64 + 1) * width as u64 * 8;
+        if need > cfg.budget.bytes {
+            return Err(Error::usage(format!(
+                "{}: {} episodes x {width} summary columns (plus {} resampled rows) would exceed \
+                 the memory budget of {} MB; audit fewer estimators, use fewer --resamples, or \
+                 raise --max-memory",
+                reader.file(),
+                ids.len() + 1,
+                cfg.resamples + 2 * cfg.splits,
+                cfg.budget.mb()
+            )));
         }
         let start = flat.len();
         flat.resize(start + width, 0.0);
@@ -276,7 +293,7 @@ pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
         .expect("select() keeps the reference");
     let plan = Plan::new(estimators, cfg.gamma, d);
 
-    let data = collect(reader, &plan)?;
+    let data = collect(reader, &plan, cfg)?;
     let n = data.contrib.nrows();
     let mut warnings = data.warnings.clone();
     few_episodes_warning(n, &mut warnings);
@@ -333,3 +350,6 @@ pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
 
 #[cfg(test)]
 mod tests;
+
+#[cfg(test)]
+mod props;

@@ -80,6 +80,11 @@ pub struct LogArgs {
     /// No progress bar (it is shown only when stderr is a terminal anyway)
     #[arg(long, short)]
     pub quiet: bool,
+
+    /// Memory a run may hold, in MB (open episodes while reading; per-episode summaries and
+    /// resamples after). Default: 80% of the memory available when the run starts
+    #[arg(long, value_name = "MB")]
+    pub max_memory: Option<u64>,
 }
 
 #[derive(Debug, Clone, Copy, ValueEnum)]
@@ -267,7 +272,15 @@ impl LogArgs {
             } else {
                 Progress::Auto
             },
+            budget: self.budget(),
         })
+    }
+
+    pub fn budget(&self) -> crate::limits::Budget {
+        self.max_memory.map_or_else(
+            crate::limits::Budget::default,
+            crate::limits::Budget::from_mb,
+        )
     }
 
     pub fn open(&self) -> Result<LogReader> {
@@ -381,6 +394,7 @@ impl AuditOptions {
             confidence: self.confidence,
             target_snr: self.target_snr,
             splits: self.splits,
+            ..AuditConfig::default()
         };
         cfg.validate()?;
         Ok(cfg)
@@ -410,7 +424,8 @@ pub fn run(cli: Cli) -> Result<u8> {
             output::write("-", &text)?;
         }
         Command::Audit(a) => {
-            let cfg = a.audit.config()?;
+            let mut cfg = a.audit.config()?;
+            cfg.budget = a.log.budget();
             output::check_writable(&a.out)?;
             if let Some(p) = &a.plot {
                 output::check_writable(p)?;
@@ -422,7 +437,8 @@ pub fn run(cli: Cli) -> Result<u8> {
             }
         }
         Command::Sweep(s) => {
-            let cfg = s.config()?;
+            let mut cfg = s.config()?;
+            cfg.audit.budget = s.log.budget();
             output::check_writable(&s.out)?;
             if let Some(p) = &s.plot {
                 output::check_writable(p)?;
@@ -441,6 +457,7 @@ pub fn run(cli: Cli) -> Result<u8> {
         }
         Command::Gate(g) => {
             let mut cfg = g.audit.config()?;
+            cfg.budget = g.log.budget();
             let rules = g.rule_set()?;
             let baseline = g.baseline.as_deref().map(Baseline::load).transpose()?;
             output::check_writable(&g.out)?;

@@ -263,7 +263,7 @@ pub fn run(reader: LogReader, cfg: &SweepConfig) -> Result<SweepReport> {
         gammas.push(p.gamma);
     }
     let plan = Plan::with_gammas(estimators, gammas, cfg.audit.gamma, d).with_moments(0);
-    let data = audit::collect(reader, &plan)?;
+    let data = audit::collect(reader, &plan, &cfg.audit)?;
     let n = data.contrib.nrows();
     let mut warnings = data.warnings.clone();
     audit::few_episodes_warning(n, &mut warnings);

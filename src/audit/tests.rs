@@ -423,3 +423,138 @@ fn rows_are_permuted_in_place() {
     permute_rows(&mut same, 1, &[0, 1]);
     assert_eq!(same, vec![1.0, 2.0]);
 }
+
+/// Every figure of a report is finite or null: serde_json would print NaN or infinity as
+/// null silently, so check the numbers themselves.
+fn assert_all_finite(r: &AuditReport) {
+    assert!(r.signal.is_finite() && r.reference_variance.is_finite());
+    for e in &r.estimators {
+        let opt = [e.snr, e.ess, e.cosine_half, e.bias_z];
+        let fixed = [e.variance, e.bias_sq, e.mse, e.gradient_norm];
+        assert!(
+            fixed
+                .iter()
+                .chain(opt.iter().flatten())
+                .chain(&e.gradient)
+                .all(|x| x.is_finite()),
+            "{}",
+            e.name
+        );
+    }
+    let json = serde_json::to_string(r).unwrap();
+    assert!(!json.contains("NaN") && !json.contains("inf"));
+}
+
+// Rewards around 1e12 and around 1e-12 (values scaled alike): squared figures reach 1e24 and
+// 1e-24, well inside f64's range (about 1e-308 to 1e308), so every figure stays finite and
+// every ratio (snr, ess) is defined; the ratios equal those of the unscaled log to rounding
+// (the scaling property, tested in general in audit::props).
+#[test]
+fn extreme_reward_magnitudes_stay_finite() {
+    let mut base = String::from("episode,reward,terminated,value,score_0,score_1\n");
+    for i in 0..60 {
+        for t in 0..5 {
+            let x = (i * 5 + t) as f64;
+            writeln!(
+                base,
+                "{i},{},{},{},{},{}",
+                (x * 0.7).sin() + 0.3,
+                u8::from(t == 4),
+                (x * 0.3).cos(),
+                (x * 1.3).sin(),
+                (x * 0.9).cos()
+            )
+            .unwrap();
+        }
+    }
+    let scaled = |c: f64| {
+        base.lines()
+            .enumerate()
+            .map(|(i, l)| {
+                if i == 0 {
+                    return l.to_string();
+                }
+                let mut f: Vec<String> = l.split(',').map(String::from).collect();
+                for k in [1, 3] {
+                    f[k] = (f[k].parse::<f64>().unwrap() * c).to_string();
+                }
+                f.join(",")
+            })
+            .collect::<Vec<_>>()
+            .join("\n")
+    };
+    let c = AuditConfig {
+        resamples: 200,
+        splits: 10,
+        ..AuditConfig::default()
+    };
+    let one = audit_text(&base, &c);
+    for factor in [1e12, 1e-12] {
+        let r = audit_text(&scaled(factor), &c);
+        assert_all_finite(&r);
+        for e in &r.estimators {
+            let o = row(&one, &e.name);
+            if let (Some(a), Some(b)) = (e.snr, o.snr) {
+                assert!(
+                    (a / b - 1.0).abs() < 1e-6,
+                    "{} at {factor}: {a} vs {b}",
+                    e.name
+                );
+            }
+        }
+    }
+}
+
+// One episode of 10^6 steps with gamma = 1 (plus a short one, since an audit needs two): every
+// scan is a single backward pass without recursion, so this neither overflows the stack nor
+// takes quadratic time; with rewards of +-1 the returns reach at most 1e6 in magnitude and
+// every figure stays finite.
+#[test]
+fn a_million_step_episode_at_gamma_one() {
+    let n = 1_000_000;
+    let mut text = String::with_capacity(n * 24);
+    text.push_str("episode,reward,terminated,value,score_0\n");
+    for t in 0..n {
+        let r = if t % 3 == 0 { 1 } else { -1 };
+        writeln!(
+            text,
+            "long,{r},{},0.5,{}",
+            u8::from(t + 1 == n),
+            (t % 7) as f64 * 0.1 - 0.3
+        )
+        .unwrap();
+    }
+    text.push_str("short,1,0,0.5,1\nshort,2,1,0.5,-1\n");
+    let c = AuditConfig {
+        gamma: 1.0,
+        resamples: 20,
+        splits: 2,
+        estimators: Some(
+            Estimator::parse_list("rtg,total,td,gae:0.9,gae:1,nstep:1000,mean_baseline,whitened")
+                .unwrap(),
+        ),
+        ..AuditConfig::default()
+    };
+    let r = audit_text(&text, &c);
+    assert_eq!(r.input.steps, n as u64 + 2);
+    assert_all_finite(&r);
+}
+
+#[test]
+fn the_contribution_matrix_respects_the_memory_budget() {
+    let mut text = String::from("episode,reward,terminated,score_0\n");
+    for i in 0..50 {
+        writeln!(text, "{i},1,1,{i}").unwrap();
+    }
+    let c = AuditConfig {
+        budget: crate::limits::Budget { bytes: 4096 },
+        ..AuditConfig::default()
+    };
+    let e = run(crate::testkit::reader(&text), &c)
+        .unwrap_err()
+        .to_string();
+    assert!(
+        e.contains("memory budget of 0 MB") && e.contains("--max-memory"),
+        "{e}"
+    );
+}

@@ -240,3 +240,6 @@ mod tests {
         );
     }
 }
+
+#[cfg(test)]
+mod props;

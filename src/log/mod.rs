@@ -33,6 +33,8 @@ pub struct ReadOptions {
     pub delimiter: u8,
     pub columns: ColumnSpec,
     pub progress: Progress,
+    /// What open episodes may hold in memory.
+    pub budget: crate::limits::Budget,
 }
 
 impl Default for ReadOptions {
@@ -41,6 +43,7 @@ impl Default for ReadOptions {
             delimiter: b',',
             columns: ColumnSpec::default(),
             progress: Progress::Auto,
+            budget: crate::limits::Budget::default(),
         }
     }
 }
@@ -70,6 +73,9 @@ pub struct LogReader {
     at_eof: bool,
     compressed: bool,
     rows: u64,
+    /// Approximate bytes held by open episodes, against `budget`.
+    held: u64,
+    budget: crate::limits::Budget,
     warnings: Warnings,
     bar: Option<ProgressBar>,
 }
@@ -138,6 +144,20 @@ impl LogReader {
         })?;
         let data_start = csv.position().byte() as usize;
         let data_line = csv.position().line();
+        if header.len() > crate::limits::MAX_COLUMNS {
+            return Err(Error::input(
+                Position {
+                    file: file.into(),
+                    line: Some(1),
+                    column: None,
+                },
+                format!(
+                    "the header has {} columns, more than the limit of {}",
+                    header.len(),
+                    crate::limits::MAX_COLUMNS
+                ),
+            ));
+        }
         let mut headers = Vec::with_capacity(header.len());
         for (i, h) in header.iter().enumerate() {
             // A UTF-8 byte-order mark before the first header is accepted and dropped.
@@ -197,6 +217,8 @@ impl LogReader {
             at_eof: false,
             compressed: false,
             rows: 0,
+            held: 0,
+            budget: options.budget,
             warnings,
             bar,
         })
@@ -311,6 +333,7 @@ impl LogReader {
                 },
             );
         }
+        let open_count = self.open.len();
         let open = self.open.get_mut(id).expect("inserted above");
         if let (Some(step), Some(last)) = (row.step, open.last_step)
             && step != last + 1
@@ -333,6 +356,23 @@ impl LogReader {
         open.last_step = row.step;
         let ep = &mut open.episode;
         let w = self.parser.vector_width();
+        // Each step holds its vector fields and up to four scalars.
+        self.held += 8 * (w as u64 + 4);
+        if self.held > self.budget.bytes {
+            return Err(Error::input_hint(
+                self.parser.at(line, None),
+                format!(
+                    "open episodes hold more than the memory budget of {} MB ({} episodes open; \
+                     '{}' has {} steps so far)",
+                    self.budget.mb(),
+                    open_count,
+                    ep.id,
+                    ep.rewards.len() + 1
+                ),
+                "check that every episode's last row sets terminated or truncated, or raise \
+                 --max-memory",
+            ));
+        }
         let v = &block.vectors[i * w..(i + 1) * w];
         let (d, o) = (ep.score_dim, ep.obs_dim);
         ep.scores.extend_from_slice(&v[..d]);
@@ -360,6 +400,7 @@ impl LogReader {
                 }
             };
             let done = self.open.remove(id).expect("open above").episode;
+            self.held -= 8 * (w as u64 + 4) * done.len() as u64;
             self.ended.insert(id.to_vec(), line);
             return Ok(Some(done));
         }
@@ -465,3 +506,6 @@ fn io_error(file: &str, io: std::io::Error, line: Option<u64>) -> Error {
         Error::io(file, io)
     }
 }
+
+#[cfg(test)]
+mod props;

@@ -264,3 +264,63 @@ fn few_episodes_warn_and_undefined_figures_are_null() {
     assert!(rtg["ess"].is_null());
     assert!(!rtg["notes"].as_array().unwrap().is_empty());
 }
+
+#[test]
+fn open_episodes_respect_the_memory_budget() {
+    let rover = demo("docking_rover.csv");
+    let (code, _, err) = run(&["inspect", &rover, "--max-memory", "0"]);
+    assert_eq!(code, 2);
+    assert!(
+        err.contains("line 2") && err.contains("memory budget of 0 MB"),
+        "{err}"
+    );
+    assert!(err.contains("terminated or truncated"), "{err}");
+}
+
+#[test]
+fn too_many_columns_is_refused() {
+    let dir = Dir::new("columns");
+    let mut header = String::from("episode,reward");
+    for j in 0..100_000 {
+        header.push_str(&format!(",score_{j}"));
+    }
+    let p = dir.write("wide.csv", format!("{header}\n").as_bytes());
+    let (code, _, err) = run(&["inspect", &p]);
+    assert_eq!(code, 2);
+    assert!(
+        err.contains("100002 columns, more than the limit of 100000"),
+        "{err}"
+    );
+}
+
+#[test]
+fn a_failed_run_leaves_an_existing_report_untouched() {
+    let dir = Dir::new("keep");
+    let report = dir.write("report.json", b"{\"previous\": true}\n");
+    let bad = dir.write("bad.csv", b"episode,reward,terminated,score_0\na,x,1,1\n");
+    let (code, _, _) = run(&["audit", &bad, "--out", &report]);
+    assert_eq!(code, 2);
+    assert_eq!(
+        std::fs::read_to_string(&report).unwrap(),
+        "{\"previous\": true}\n"
+    );
+    // A target that cannot be replaced (a folder): a clean error, and no temporary file left.
+    let folder = dir.path("a-folder");
+    std::fs::create_dir(&folder).unwrap();
+    let rover = demo("docking_rover.csv");
+    let (code, _, err) = run(&[
+        "audit",
+        &rover,
+        "--resamples",
+        "50",
+        "--out",
+        folder.to_str().unwrap(),
+    ]);
+    assert_eq!(code, 2, "{err}");
+    assert!(err.contains("a-folder"), "{err}");
+    let left: Vec<_> = std::fs::read_dir(dir.tmp.path())
+        .unwrap()
+        .map(|e| e.unwrap().file_name())
+        .collect();
+    assert_eq!(left.len(), 3, "{left:?}");
+}

@@ -4,6 +4,8 @@ mod util;
 
 mod audit;
 mod bad_input;
+mod corpus;
+mod fuzz_inputs;
 mod gate;
 mod inspect;
 mod sweep;
