@@ -199,15 +199,14 @@ fn rover(a: &Args, rng: &mut ChaCha8Rng, out: &mut Out) -> std::io::Result<serde
         }
     }
     Ok(serde_json::json!({
+        "schema": "gradaudit.policy/1",
         "family": "gaussian_linear",
-        "scenario": "docking rover",
         "features": (0..f).map(|j| format!("obs_{j}")).collect::<Vec<_>>(),
         "actions": ["act_0", "act_1"],
         "W": w,
         "c": c,
         "log_sigma": log_sigma,
-        "log_sigma_learned": true,
-        "parameter_order": "W row-major (W[i,j] for action i, feature j), then c, then log_sigma",
+        "learn_log_sigma": true,
     }))
 }
 
@@ -275,13 +274,12 @@ fn diverter(a: &Args, rng: &mut ChaCha8Rng, out: &mut Out) -> std::io::Result<se
         }
     }
     Ok(serde_json::json!({
+        "schema": "gradaudit.policy/1",
         "family": "bernoulli_logistic",
-        "scenario": "parcel diverter gate",
         "features": (0..f).map(|j| format!("obs_{j}")).collect::<Vec<_>>(),
         "action": "act_0",
         "w": wts,
         "c": c,
-        "parameter_order": "w (one per feature), then c",
     }))
 }
 
@@ -305,9 +303,13 @@ fn main() -> std::io::Result<()> {
     out.w.flush()?;
     if let Some(path) = &a.policy_out {
         let mut v = policy;
-        v["generated_by"] = serde_json::json!(
+        let scenario = match a.scenario {
+            Scenario::Rover => "docking rover",
+            Scenario::Diverter => "parcel diverter gate",
+        };
+        v["note"] = serde_json::json!(
             format!(
-                "make_rollouts --scenario {:?} --episodes {} --horizon {} --seed {}",
+                "{scenario} policy of make_rollouts --scenario {:?} --episodes {} --horizon {} --seed {}",
                 a.scenario, a.episodes, a.horizon, a.seed
             )
             .to_lowercase()

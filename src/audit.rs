@@ -31,6 +31,24 @@ pub struct AuditConfig {
     pub splits: usize,
     /// What the contribution matrix and the resampled rows may hold.
     pub budget: crate::limits::Budget,
+    /// A policy file to compute the score vectors from the obs and act columns.
+    pub policy: Option<String>,
+    /// Which scores to use when the log has score columns and a policy is given.
+    pub scores_from: Option<ScoresFrom>,
+}
+
+/// Where score vectors come from when both are available.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum ScoresFrom {
+    Policy,
+    Columns,
+}
+
+/// The score vectors of a run: their dimension, names, and the policy that computes them.
+pub struct Scores {
+    pub dim: usize,
+    pub names: Vec<String>,
+    pub policy: Option<crate::policy::Policy>,
 }
 
 impl Default for AuditConfig {
@@ -45,6 +63,8 @@ impl Default for AuditConfig {
             target_snr: 1.0,
             splits: 200,
             budget: crate::limits::Budget::default(),
+            policy: None,
+            scores_from: None,
         }
     }
 }
@@ -139,16 +159,43 @@ fn id_order(a: &str, b: &str) -> Ordering {
     }
 }
 
-/// The log's score dimension; an error when it has no score columns.
-pub fn score_dim(reader: &LogReader) -> Result<usize> {
-    match reader.schema().score_dim() {
-        0 => Err(Error::usage(format!(
+/// Where the score vectors come from: the log's score columns or a policy file.
+pub fn scores(reader: &LogReader, cfg: &AuditConfig) -> Result<Scores> {
+    let schema = reader.schema();
+    let columns = || Scores {
+        dim: schema.score_dim(),
+        names: schema
+            .scores
+            .iter()
+            .map(|&c| schema.headers[c].clone())
+            .collect(),
+        policy: None,
+    };
+    match (&cfg.policy, schema.score_dim(), cfg.scores_from) {
+        (None, 0, _) => Err(Error::usage(format!(
             "{}: the log has no score columns, and gradients need the score vector \
-             grad log pi(a_t | s_t) of every step; log them as score_0..score_{{d-1}} or name \
-             their prefix with --score-prefix",
+             grad log pi(a_t | s_t) of every step; log them as score_0..score_{{d-1}} (or name \
+             their prefix with --score-prefix), or give --policy FILE to compute them from the \
+             obs and act columns",
             reader.file()
         ))),
-        d => Ok(d),
+        (None, _, Some(ScoresFrom::Policy)) => {
+            Err(Error::usage("--scores-from policy needs --policy FILE"))
+        }
+        (None, _, _) | (Some(_), _, Some(ScoresFrom::Columns)) => Ok(columns()),
+        (Some(_), d, None) if d > 0 => Err(Error::usage(format!(
+            "{}: the log has {d} score columns and a policy file was given; say which scores to \
+             use with --scores-from policy or --scores-from columns",
+            reader.file()
+        ))),
+        (Some(path), _, _) => {
+            let policy = crate::policy::Policy::load(path, schema)?;
+            Ok(Scores {
+                dim: policy.dim(),
+                names: policy.parameters.clone(),
+                policy: Some(policy),
+            })
+        }
     }
 }
 
@@ -161,7 +208,12 @@ pub struct Collected {
 
 /// Reads every episode, reducing each to its contribution row under `plan`. Fails with fewer
 /// than 2 episodes.
-pub fn collect(mut reader: LogReader, plan: &Plan, cfg: &AuditConfig) -> Result<Collected> {
+pub fn collect(
+    mut reader: LogReader,
+    plan: &Plan,
+    cfg: &AuditConfig,
+    scores: &Scores,
+) -> Result<Collected> {
     let width = plan.width();
     // Rows held after reading: contributions (N), replicates (B) and half splits (2S).
     let fixed = (cfg.resamples + 2 * cfg.splits) as u64 * width as u64 * 8;
@@ -169,7 +221,11 @@ pub fn collect(mut reader: LogReader, plan: &Plan, cfg: &AuditConfig) -> Result<
     let mut flat: Vec<f64> = Vec::new();
     let mut work = Work::default();
     let mut input = InputSummary::default();
-    while let Some(ep) = reader.next_episode()? {
+    while let Some(mut ep) = reader.next_episode()? {
+        if let Some(policy) = &scores.policy {
+            let first = ep.first_line;
+            policy.score_episode(&mut ep, reader.file(), first)?;
+        }
         input.episodes += 1;
         input.steps += ep.len() as u64;
         match ep.end {
@@ -196,6 +252,13 @@ pub fn collect(mut reader: LogReader, plan: &Plan, cfg: &AuditConfig) -> Result<
     input.file = reader.file().to_string();
     input.rows = reader.rows();
     input.score_dim = plan.d;
+    input.parameters = scores.names.clone();
+    input.scores_from = if scores.policy.is_some() {
+        "policy"
+    } else {
+        "columns"
+    }
+    .to_string();
     let n = ids.len();
     if n < 2 {
         return Err(Error::usage(format!(
@@ -285,7 +348,8 @@ pub fn resample_all(data: &Collected, cfg: &AuditConfig) -> Resampled {
 /// Runs the whole audit over an opened log.
 pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
     cfg.validate()?;
-    let d = score_dim(&reader)?;
+    let scores = scores(&reader, cfg)?;
+    let d = scores.dim;
     let (estimators, skipped) = select(reader.schema(), cfg.estimators.as_deref(), cfg.reference)?;
     let reference = estimators
         .iter()
@@ -293,7 +357,7 @@ pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
         .expect("select() keeps the reference");
     let plan = Plan::new(estimators, cfg.gamma, d);
 
-    let data = collect(reader, &plan, cfg)?;
+    let data = collect(reader, &plan, cfg, &scores)?;
     let n = data.contrib.nrows();
     let mut warnings = data.warnings.clone();
     few_episodes_warning(n, &mut warnings);

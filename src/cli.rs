@@ -146,6 +146,21 @@ pub struct AuditOptions {
     /// Random half splits behind cosine_half
     #[arg(long, default_value_t = 200, value_name = "N")]
     pub splits: usize,
+
+    /// Compute the score vectors from the obs and act columns with this policy file (JSON,
+    /// schema gradaudit.policy/1; see the README)
+    #[arg(long, value_name = "FILE")]
+    pub policy: Option<String>,
+
+    /// With both score columns and --policy: which scores to use
+    #[arg(long, value_enum, value_name = "SOURCE")]
+    pub scores_from: Option<ScoresFromArg>,
+}
+
+#[derive(Debug, Clone, Copy, ValueEnum)]
+pub enum ScoresFromArg {
+    Policy,
+    Columns,
 }
 
 #[derive(Debug, Args)]
@@ -394,6 +409,11 @@ impl AuditOptions {
             confidence: self.confidence,
             target_snr: self.target_snr,
             splits: self.splits,
+            policy: self.policy.clone(),
+            scores_from: self.scores_from.map(|s| match s {
+                ScoresFromArg::Policy => crate::audit::ScoresFrom::Policy,
+                ScoresFromArg::Columns => crate::audit::ScoresFrom::Columns,
+            }),
             ..AuditConfig::default()
         };
         cfg.validate()?;

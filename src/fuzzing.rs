@@ -35,3 +35,36 @@ pub fn baseline(bytes: &[u8]) {
         let _ = crate::gate::Baseline::from_json(text, "fuzz.json");
     }
 }
+
+/// Parses a policy file (`--policy`) against a header with four obs and two act columns, then
+/// scores one step with it.
+pub fn policy(bytes: &[u8]) {
+    use crate::log::{ColumnSpec, Schema};
+    let Ok(text) = std::str::from_utf8(bytes) else {
+        return;
+    };
+    let headers = [
+        "episode", "reward", "obs_0", "obs_1", "obs_2", "obs_3", "act_0", "act_1",
+    ];
+    let schema = Schema::resolve(
+        &ColumnSpec::default(),
+        headers.iter().map(|h| h.to_string()).collect(),
+        "fuzz.csv",
+    )
+    .expect("a fixed valid header");
+    if let Ok(p) = crate::policy::Policy::from_json(text, "fuzz.json", &schema) {
+        let mut ep = crate::episode::Episode::new(
+            "e".into(),
+            2,
+            &crate::episode::Layout {
+                obs_dim: 4,
+                act_dim: 2,
+                ..Default::default()
+            },
+        );
+        ep.rewards = vec![1.0, 0.0];
+        ep.obs = vec![0.5, -1.0, 2.0, 0.0, 1e3, -1e-3, 0.0, 7.0];
+        ep.act = vec![1.0, 0.0, 0.0, 2.5];
+        let _ = p.score_episode(&mut ep, "fuzz.csv", 2);
+    }
+}

@@ -19,6 +19,7 @@ pub mod gate;
 pub mod inspect;
 pub mod limits;
 pub mod output;
+pub mod policy;
 pub mod report;
 pub mod resample;
 pub mod stats;

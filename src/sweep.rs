@@ -240,7 +240,8 @@ pub fn run(reader: LogReader, cfg: &SweepConfig) -> Result<SweepReport> {
     if cfg.grid.is_empty() {
         return Err(Error::usage("the grid is empty"));
     }
-    let d = audit::score_dim(&reader)?;
+    let scores = audit::scores(&reader, &cfg.audit)?;
+    let d = scores.dim;
     let needs_value = cfg.grid.iter().any(|p| !p.estimator.needs().is_empty());
     if needs_value && !reader.schema().has(Role::Value) {
         return Err(Error::usage(format!(
@@ -263,7 +264,7 @@ pub fn run(reader: LogReader, cfg: &SweepConfig) -> Result<SweepReport> {
         gammas.push(p.gamma);
     }
     let plan = Plan::with_gammas(estimators, gammas, cfg.audit.gamma, d).with_moments(0);
-    let data = audit::collect(reader, &plan, &cfg.audit)?;
+    let data = audit::collect(reader, &plan, &cfg.audit, &scores)?;
     let n = data.contrib.nrows();
     let mut warnings = data.warnings.clone();
     audit::few_episodes_warning(n, &mut warnings);

@@ -50,6 +50,11 @@ pub struct InputSummary {
     pub terminated: u64,
     pub truncated: u64,
     pub score_dim: usize,
+    /// Names of the gradient components: score column headers, or policy parameters such as
+    /// `W[1,0]` and `log_sigma[1]`.
+    pub parameters: Vec<String>,
+    /// `columns` or `policy`.
+    pub scores_from: String,
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize)]

@@ -38,8 +38,8 @@ pub fn preamble(r: &AuditReport) -> Vec<String> {
     vec![
         format!("gradaudit audit of {}", i.file),
         format!(
-            "  {} episodes, {} steps ({} terminated, {} truncated), score dimension {}",
-            i.episodes, i.steps, i.terminated, i.truncated, i.score_dim
+            "  {} episodes, {} steps ({} terminated, {} truncated), score dimension {} (from {})",
+            i.episodes, i.steps, i.terminated, i.truncated, i.score_dim, i.scores_from
         ),
         format!(
             "  gamma {}, {} resamples, seed {}, reference {}, {}% intervals, target snr {}",

@@ -38,3 +38,8 @@ fn rules_inputs() {
 fn baseline_inputs() {
     assert!(replay("baseline", gradaudit::fuzzing::baseline) >= 1);
 }
+
+#[test]
+fn policy_inputs() {
+    assert!(replay("policy", gradaudit::fuzzing::policy) >= 3);
+}

@@ -8,4 +8,5 @@ mod corpus;
 mod fuzz_inputs;
 mod gate;
 mod inspect;
+mod policy;
 mod sweep;
