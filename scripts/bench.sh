@@ -38,12 +38,14 @@ PY
 }
 rss() { # command...
   /usr/bin/time -v "$@" >/dev/null 2>"$out/time.txt"
-  awk -F': ' '/Maximum resident/ {printf "%8.1f MB peak RSS  ", $2/1024} /Elapsed/ {print $2 " wall"}' "$out/time.txt"
+  awk -F': ' '/Maximum resident/ {rss = $2 / 1024} /Elapsed/ {wall = $2}
+              END {printf "%8.1f MB peak RSS, %s wall  (/usr/bin/time -v)\n", rss, wall}' "$out/time.txt"
 }
 {
   echo "== parse floor and audit, 1M rows (5000 x 200, d = 32)"
   ls -l bench-data/rover_1m.csv | awk '{printf "file: %.0f MB\n", $5/1e6}'
-  hf floor_1m 5 "$bin inspect bench-data/rover_1m.csv"
+  hf floor_1m 5 "$bin inspect bench-data/rover_1m.csv" \
+                "env RAYON_NUM_THREADS=1 $bin inspect bench-data/rover_1m.csv"
   hf audit_1m 5 "$bin audit bench-data/rover_1m.csv"
   hf sweep_1m 5 "$bin sweep bench-data/rover_1m.csv --over lambda"
   rss "$bin" audit bench-data/rover_1m.csv

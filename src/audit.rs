@@ -35,6 +35,8 @@ pub struct AuditConfig {
     pub policy: Option<String>,
     /// Which scores to use when the log has score columns and a policy is given.
     pub scores_from: Option<ScoresFrom>,
+    /// The score columns are this many random-projection sketches of the full score vector.
+    pub sketch: Option<usize>,
 }
 
 /// Where score vectors come from when both are available.
@@ -65,6 +67,7 @@ impl Default for AuditConfig {
             budget: crate::limits::Budget::default(),
             policy: None,
             scores_from: None,
+            sketch: None,
         }
     }
 }
@@ -350,6 +353,20 @@ pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
     cfg.validate()?;
     let scores = scores(&reader, cfg)?;
     let d = scores.dim;
+    if let Some(k) = cfg.sketch {
+        if scores.policy.is_some() {
+            return Err(Error::usage(
+                "--score-sketch describes logged score columns; it does not combine with --policy scores",
+            ));
+        }
+        if k != d {
+            return Err(Error::usage(format!(
+                "{}: --score-sketch {k} but the log has {d} score columns; give the number of \
+                 projection columns",
+                reader.file()
+            )));
+        }
+    }
     let (estimators, skipped) = select(reader.schema(), cfg.estimators.as_deref(), cfg.reference)?;
     let reference = estimators
         .iter()
@@ -390,7 +407,7 @@ pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
         .collect();
     estimators.sort_by(|a, b| a.mse.total_cmp(&b.mse).then_with(|| a.name.cmp(&b.name)));
     let verdict = Verdict::from_rows(&estimators, signal.signal);
-    Ok(AuditReport {
+    let mut report = AuditReport {
         tool: crate::report::Tool::current(),
         input,
         settings: Settings {
@@ -409,7 +426,11 @@ pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
         skipped,
         verdict,
         warnings,
-    })
+    };
+    if let Some(k) = cfg.sketch {
+        crate::sketch::rescale(&mut report, k);
+    }
+    Ok(report)
 }
 
 #[cfg(test)]

@@ -155,6 +155,11 @@ pub struct AuditOptions {
     /// With both score columns and --policy: which scores to use
     #[arg(long, value_enum, value_name = "SOURCE")]
     pub scores_from: Option<ScoresFromArg>,
+
+    /// The K score columns are random projections z_j . grad log pi (E[z z^T] = I) of a larger
+    /// score vector: report estimates of the full-gradient figures
+    #[arg(long, value_name = "K")]
+    pub score_sketch: Option<usize>,
 }
 
 #[derive(Debug, Clone, Copy, ValueEnum)]
@@ -414,6 +419,7 @@ impl AuditOptions {
                 ScoresFromArg::Policy => crate::audit::ScoresFrom::Policy,
                 ScoresFromArg::Columns => crate::audit::ScoresFrom::Columns,
             }),
+            sketch: self.score_sketch,
             ..AuditConfig::default()
         };
         cfg.validate()?;

@@ -22,6 +22,7 @@ pub mod output;
 pub mod policy;
 pub mod report;
 pub mod resample;
+pub mod sketch;
 pub mod stats;
 pub mod sweep;
 #[cfg(test)]

@@ -11,6 +11,9 @@ pub fn render(r: &AuditReport) -> String {
         out.push_str(&format!("- {}\n", line.trim()));
     }
     out.push('\n');
+    if let Some(sk) = &r.input.sketch {
+        out.push_str(&format!("**Note:** {}\n\n", sk.note));
+    }
     if !r.warnings.is_empty() {
         out.push_str("**Warnings**\n\n");
         for line in r.warnings.lines() {

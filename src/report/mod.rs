@@ -55,6 +55,15 @@ pub struct InputSummary {
     pub parameters: Vec<String>,
     /// `columns` or `policy`.
     pub scores_from: String,
+    /// Present when the score columns are random-projection sketches.
+    pub sketch: Option<Sketch>,
+}
+
+/// How the score columns were sketched, and what that means for the figures.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Sketch {
+    pub k: usize,
+    pub note: String,
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize)]

@@ -56,6 +56,9 @@ pub fn preamble(r: &AuditReport) -> Vec<String> {
 pub fn render(r: &AuditReport) -> String {
     let mut out = preamble(r).join("\n");
     out.push('\n');
+    if let Some(sk) = &r.input.sketch {
+        out.push_str(&format!("note: {}\n", sk.note));
+    }
     if !r.warnings.is_empty() {
         out.push_str("warnings:\n");
         for line in r.warnings.lines() {
