@@ -92,8 +92,8 @@ mod tests {
             let mut rtg = 0.0;
             for t in (0..3).rev() {
                 rtg += steps[t].0;
-                for j in 0..D {
-                    ge[j] += rtg * steps[t].1[j];
+                for (x, sj) in ge.iter_mut().zip(&steps[t].1) {
+                    *x += rtg * sj;
                 }
             }
             per_episode.push(ge);
