@@ -37,6 +37,8 @@ pub struct AuditConfig {
     pub scores_from: Option<ScoresFrom>,
     /// The score columns are this many random-projection sketches of the full score vector.
     pub sketch: Option<usize>,
+    /// A cross-fitted critic replacing the log's value column (see critic.rs).
+    pub critic: Option<crate::critic::Critic>,
 }
 
 /// Where score vectors come from when both are available.
@@ -68,6 +70,7 @@ impl Default for AuditConfig {
             policy: None,
             scores_from: None,
             sketch: None,
+            critic: None,
         }
     }
 }
@@ -114,9 +117,10 @@ pub fn select(
     schema: &Schema,
     requested: Option<&[Estimator]>,
     reference: Estimator,
+    fitted_values: bool,
 ) -> Result<(Vec<Estimator>, Vec<Skipped>)> {
     let has = |need: &Need| match need {
-        Need::Value => schema.has(Role::Value),
+        Need::Value => schema.has(Role::Value) || fitted_values,
         Need::Q => schema.has(Role::Q),
     };
     let explicit = requested.is_some();
@@ -224,11 +228,22 @@ pub fn collect(
     let mut flat: Vec<f64> = Vec::new();
     let mut work = Work::default();
     let mut input = InputSummary::default();
+    // Per-episode critic sums, combined later in canonical order so that the figures do not
+    // depend on the order in which episodes end.
+    let mut quality: Vec<[crate::critic::ExplainedVariance; 2]> = Vec::new();
+    let mut buf = Vec::new();
     while let Some(mut ep) = reader.next_episode()? {
         if let Some(policy) = &scores.policy {
             let first = ep.first_line;
             policy.score_episode(&mut ep, reader.file(), first)?;
         }
+        let mut q = [crate::critic::ExplainedVariance::default(); 2];
+        q[0].push_episode(&ep, plan.gamma, &mut buf);
+        if let Some(critic) = &cfg.critic {
+            critic.apply(&mut ep);
+            q[1].push_episode(&ep, plan.gamma, &mut buf);
+        }
+        quality.push(q);
         input.episodes += 1;
         input.steps += ep.len() as u64;
         match ep.end {
@@ -262,6 +277,26 @@ pub fn collect(
         "columns"
     }
     .to_string();
+    let mut order: Vec<usize> = (0..ids.len()).collect();
+    order.sort_by(|&a, &b| id_order(&ids[a], &ids[b]));
+    let (mut recorded, mut fitted) = (
+        crate::critic::ExplainedVariance::default(),
+        crate::critic::ExplainedVariance::default(),
+    );
+    for &i in &order {
+        recorded.merge(&quality[i][0]);
+        fitted.merge(&quality[i][1]);
+    }
+    input.critic = crate::critic::CriticQuality {
+        recorded_explained_variance: reader
+            .schema()
+            .has(Role::Value)
+            .then(|| recorded.value())
+            .flatten(),
+        fitted_explained_variance: fitted.value(),
+        fitted_folds: cfg.critic.as_ref().map(|c| c.folds()),
+        fitted_features: cfg.critic.as_ref().map(|c| c.features()),
+    };
     let n = ids.len();
     if n < 2 {
         return Err(Error::usage(format!(
@@ -270,8 +305,6 @@ pub fn collect(
         )));
     }
     // Canonical order, so the same episodes in another row order give identical numbers.
-    let mut order: Vec<usize> = (0..n).collect();
-    order.sort_by(|&a, &b| id_order(&ids[a], &ids[b]));
     permute_rows(&mut flat, width, &order);
     let contrib = Array2::from_shape_vec((n, width), flat).expect("n x width values");
     Ok(Collected {
@@ -367,7 +400,12 @@ pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
             )));
         }
     }
-    let (estimators, skipped) = select(reader.schema(), cfg.estimators.as_deref(), cfg.reference)?;
+    let (estimators, skipped) = select(
+        reader.schema(),
+        cfg.estimators.as_deref(),
+        cfg.reference,
+        cfg.critic.is_some(),
+    )?;
     let reference = estimators
         .iter()
         .position(|e| *e == cfg.reference)

@@ -100,6 +100,14 @@ pub struct InspectArgs {
     /// Output format
     #[arg(long, value_enum, default_value_t = InspectFormat::Table)]
     pub format: InspectFormat,
+
+    /// Discount of the returns that the critic quality is measured against
+    #[arg(long, default_value_t = 0.99)]
+    pub gamma: f64,
+
+    /// Also fit a cross-fitted value baseline and report its quality (reads the log twice)
+    #[arg(long)]
+    pub fit_value: bool,
 }
 
 #[derive(Debug, Clone, Copy, ValueEnum)]
@@ -155,6 +163,19 @@ pub struct AuditOptions {
     /// With both score columns and --policy: which scores to use
     #[arg(long, value_enum, value_name = "SOURCE")]
     pub scores_from: Option<ScoresFromArg>,
+
+    /// Fit V(s_t) by ridge regression on obs features and time, cross-fitted by episode, and use
+    /// it instead of the log's value column (reads the log twice)
+    #[arg(long)]
+    pub fit_value: bool,
+
+    /// Folds of the cross-fitting
+    #[arg(long, default_value_t = 5, value_name = "K")]
+    pub folds: usize,
+
+    /// Ridge penalty of the value fit, relative to the standardised features
+    #[arg(long, default_value_t = 1e-3, value_name = "ALPHA")]
+    pub ridge: f64,
 
     /// The K score columns are random projections z_j . grad log pi (E[z z^T] = I) of a larger
     /// score vector: report estimates of the full-gradient figures
@@ -395,6 +416,28 @@ impl GateArgs {
 }
 
 impl AuditOptions {
+    /// The first pass of --fit-value: fits the critic on the log.
+    pub fn fit_critic(&self, log: &LogArgs, gamma: f64) -> Result<Option<crate::critic::Critic>> {
+        if !self.fit_value {
+            return Ok(None);
+        }
+        if log.log == "-" {
+            return Err(Error::usage(
+                "--fit-value reads the log twice (fit, then apply); give a file, not stdin",
+            ));
+        }
+        if !(self.ridge >= 0.0 && self.ridge.is_finite()) {
+            return Err(Error::usage("--ridge must be a number >= 0"));
+        }
+        let fit = crate::critic::FitConfig {
+            folds: self.folds,
+            ridge: self.ridge,
+            gamma,
+            in_sample: false,
+        };
+        crate::critic::fit(log.open()?, &fit).map(Some)
+    }
+
     pub fn config(&self) -> Result<AuditConfig> {
         let estimators = match &self.estimators {
             Some(list) => Some(
@@ -442,7 +485,27 @@ impl AuditArgs {
 pub fn run(cli: Cli) -> Result<u8> {
     match cli.command {
         Command::Inspect(a) => {
-            let report = inspect::run(a.log.open()?)?;
+            if !(0.0..=1.0).contains(&a.gamma) {
+                return Err(Error::usage(format!(
+                    "--gamma {} must lie in [0, 1]",
+                    a.gamma
+                )));
+            }
+            let critic = if a.fit_value {
+                if a.log.log == "-" {
+                    return Err(Error::usage(
+                        "--fit-value reads the log twice; give a file, not stdin",
+                    ));
+                }
+                let fit = crate::critic::FitConfig {
+                    gamma: a.gamma,
+                    ..Default::default()
+                };
+                Some(crate::critic::fit(a.log.open()?, &fit)?)
+            } else {
+                None
+            };
+            let report = inspect::run(a.log.open()?, a.gamma, critic.as_ref())?;
             let text = match a.format {
                 InspectFormat::Table => report::inspect::render_text(&report),
                 InspectFormat::Json => report::inspect::render_json(&report),
@@ -453,6 +516,7 @@ pub fn run(cli: Cli) -> Result<u8> {
             let mut cfg = a.audit.config()?;
             cfg.budget = a.log.budget();
             output::check_writable(&a.out)?;
+            cfg.critic = a.audit.fit_critic(&a.log, cfg.gamma)?;
             if let Some(p) = &a.plot {
                 output::check_writable(p)?;
             }
@@ -466,6 +530,7 @@ pub fn run(cli: Cli) -> Result<u8> {
             let mut cfg = s.config()?;
             cfg.audit.budget = s.log.budget();
             output::check_writable(&s.out)?;
+            cfg.audit.critic = s.audit.fit_critic(&s.log, cfg.audit.gamma)?;
             if let Some(p) = &s.plot {
                 output::check_writable(p)?;
             }
@@ -491,6 +556,7 @@ pub fn run(cli: Cli) -> Result<u8> {
                 output::check_writable(j)?;
             }
             gate::include_named(&mut cfg, &rules);
+            cfg.critic = g.audit.fit_critic(&g.log, cfg.gamma)?;
             let result = gate::run(audit::run(g.log.open()?, &cfg)?, &rules, baseline.as_ref())?;
             let text = match g.format {
                 GateFormat::Text => report::gate::render_text(&result),

@@ -56,14 +56,31 @@ pub struct InspectReport {
     pub columns: Vec<Assignment>,
     /// Header columns that got no role and are ignored.
     pub unused_columns: Vec<String>,
+    /// Discount of the returns the critic quality refers to.
+    pub gamma: f64,
+    pub critic: crate::critic::CriticQuality,
     pub warnings: Warnings,
 }
 
-pub fn run(mut reader: LogReader) -> Result<InspectReport> {
+pub fn run(
+    mut reader: LogReader,
+    gamma: f64,
+    critic: Option<&crate::critic::Critic>,
+) -> Result<InspectReport> {
+    let (mut recorded, mut fitted, mut buf) = (
+        crate::critic::ExplainedVariance::default(),
+        crate::critic::ExplainedVariance::default(),
+        Vec::new(),
+    );
     let mut lengths = Vec::new();
     let mut returns = Vec::new();
     let (mut terminated, mut truncated, mut boot) = (0, 0, 0);
-    while let Some(ep) = reader.next_episode()? {
+    while let Some(mut ep) = reader.next_episode()? {
+        recorded.push_episode(&ep, gamma, &mut buf);
+        if let Some(c) = critic {
+            c.apply(&mut ep);
+            fitted.push_episode(&ep, gamma, &mut buf);
+        }
         lengths.push(ep.len() as f64);
         returns.push(ep.total_reward());
         match ep.end {
@@ -99,6 +116,16 @@ pub fn run(mut reader: LogReader) -> Result<InspectReport> {
         act_dim: schema.act.len(),
         columns,
         unused_columns,
+        gamma,
+        critic: crate::critic::CriticQuality {
+            recorded_explained_variance: schema
+                .has(crate::log::Role::Value)
+                .then(|| recorded.value())
+                .flatten(),
+            fitted_explained_variance: fitted.value(),
+            fitted_folds: critic.map(|c| c.folds()),
+            fitted_features: critic.map(|c| c.features()),
+        },
         warnings: reader.warnings().clone(),
     })
 }

@@ -13,6 +13,7 @@ pub use error::{Error, Result};
 pub mod audit;
 pub mod cli;
 pub mod contrib;
+pub mod critic;
 pub mod estimator;
 pub mod fuzzing;
 pub mod gate;

@@ -243,9 +243,10 @@ pub fn run(reader: LogReader, cfg: &SweepConfig) -> Result<SweepReport> {
     let scores = audit::scores(&reader, &cfg.audit)?;
     let d = scores.dim;
     let needs_value = cfg.grid.iter().any(|p| !p.estimator.needs().is_empty());
-    if needs_value && !reader.schema().has(Role::Value) {
+    if needs_value && !reader.schema().has(Role::Value) && cfg.audit.critic.is_none() {
         return Err(Error::usage(format!(
-            "{}: sweeping {} needs the value column (a critic's V(s_t)), which the log lacks",
+            "{}: sweeping {} needs the value column (a critic's V(s_t)), which the log lacks; \
+             --fit-value fits one",
             reader.file(),
             cfg.over.key()
         )));

@@ -54,6 +54,9 @@ pub fn render_text(r: &InspectReport) -> String {
     if !r.unused_columns.is_empty() {
         out.push_str(&format!("  (ignored)   {}\n", r.unused_columns.join(", ")));
     }
+    if let Some(line) = super::table::critic_line(&r.critic) {
+        out.push_str(&format!("{line} (returns at gamma {})\n", r.gamma));
+    }
     if r.warnings.is_empty() {
         out.push_str("warnings: none\n");
     } else {

@@ -57,6 +57,8 @@ pub struct InputSummary {
     pub scores_from: String,
     /// Present when the score columns are random-projection sketches.
     pub sketch: Option<Sketch>,
+    /// How well the recorded and the fitted critic explain the discounted returns.
+    pub critic: crate::critic::CriticQuality,
 }
 
 /// How the score columns were sketched, and what that means for the figures.

@@ -59,6 +59,9 @@ pub fn render(r: &AuditReport) -> String {
     if let Some(sk) = &r.input.sketch {
         out.push_str(&format!("note: {}\n", sk.note));
     }
+    if let Some(line) = critic_line(&r.input.critic) {
+        out.push_str(&format!("{line}\n"));
+    }
     if !r.warnings.is_empty() {
         out.push_str("warnings:\n");
         for line in r.warnings.lines() {
@@ -104,4 +107,25 @@ pub fn bias_legend(r: &AuditReport) -> Option<String> {
             unsure.join(", ")
         )
     })
+}
+
+/// One line on the critics' quality, when there is a critic.
+pub fn critic_line(c: &crate::critic::CriticQuality) -> Option<String> {
+    let ev = |x: Option<f64>| x.map_or("undefined".to_string(), |v| format!("{v:.3}"));
+    match (c.recorded_explained_variance, c.fitted_folds) {
+        (None, None) => None,
+        (rec, None) => Some(format!(
+            "critic: recorded values explain {} of the return variance",
+            ev(rec)
+        )),
+        (rec, Some(k)) => Some(format!(
+            "critic: fitted by {k}-fold cross-fitted ridge regression on {} features, explained \
+             variance {}{}",
+            c.fitted_features.unwrap_or(0),
+            ev(c.fitted_explained_variance),
+            rec.map_or(String::new(), |r| format!(
+                " (the recorded critic, ignored: {r:.3})"
+            ))
+        )),
+    }
 }

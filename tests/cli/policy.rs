@@ -95,3 +95,64 @@ fn a_log_without_scores_audits_with_a_policy() {
         "{err}"
     );
 }
+
+#[test]
+fn fit_value_gives_a_critic_to_a_log_without_one() {
+    let diverter = demo("parcel_diverter.csv");
+    let (code, out, err) = run(&[
+        "audit",
+        &diverter,
+        "--fit-value",
+        "--resamples",
+        "100",
+        "--format",
+        "json",
+    ]);
+    assert_eq!(code, 0, "{err}");
+    let v: serde_json::Value = serde_json::from_str(&out).unwrap();
+    let names: Vec<&str> = v["estimators"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|e| e["name"].as_str().unwrap())
+        .collect();
+    for want in ["value_baseline", "td", "gae:0.95", "nstep:5"] {
+        assert!(names.contains(&want), "{want} in {names:?}");
+    }
+    assert_eq!(v["input"]["critic"]["fitted_folds"], 5);
+    assert!(
+        v["input"]["critic"]["fitted_explained_variance"]
+            .as_f64()
+            .unwrap()
+            > 0.0
+    );
+    assert!(v["input"]["critic"]["recorded_explained_variance"].is_null());
+    let rover = demo("docking_rover.csv");
+    let (code, out, _) = run(&["inspect", &rover, "--fit-value", "--format", "json"]);
+    assert_eq!(code, 0);
+    let v: serde_json::Value = serde_json::from_str(&out).unwrap();
+    let (rec, fit) = (
+        v["critic"]["recorded_explained_variance"].as_f64().unwrap(),
+        v["critic"]["fitted_explained_variance"].as_f64().unwrap(),
+    );
+    assert!(
+        fit > rec,
+        "the demo's recorded critic is deliberately poor: {rec} vs {fit}"
+    );
+    let (code, _, err) = gradaudit_stdin(&["audit", "-", "--fit-value"]);
+    assert_eq!(code, 2);
+    assert!(err.contains("reads the log twice"), "{err}");
+}
+
+fn gradaudit_stdin(args: &[&str]) -> (i32, String, String) {
+    let out = crate::util::gradaudit()
+        .args(args)
+        .write_stdin("episode,reward,score_0\na,1,1\n")
+        .output()
+        .unwrap();
+    (
+        out.status.code().unwrap_or(-1),
+        String::from_utf8_lossy(&out.stdout).into(),
+        String::from_utf8_lossy(&out.stderr).into(),
+    )
+}
