@@ -197,6 +197,13 @@ pub struct AuditArgs {
     #[command(flatten)]
     pub audit: AuditOptions,
 
+    #[command(flatten)]
+    pub output: ReportOutput,
+}
+
+/// Where and how `audit` and `sweep` write their report.
+#[derive(Debug, Args)]
+pub struct ReportOutput {
     /// Output format
     #[arg(long, value_enum, default_value_t = AuditFormat::Table)]
     pub format: AuditFormat,
@@ -205,9 +212,21 @@ pub struct AuditArgs {
     #[arg(long, value_name = "FILE", default_value = "-")]
     pub out: String,
 
-    /// Also draw each estimator's MSE split into bias^2 and variance, as SVG
+    /// Also draw the report as SVG: audit, each estimator's MSE split into bias^2 and
+    /// variance; sweep, bias^2, variance and MSE against the swept parameter
     #[arg(long, value_name = "FILE.svg")]
     pub plot: Option<String>,
+}
+
+impl ReportOutput {
+    /// Fails early on paths that cannot be written.
+    fn check(&self) -> Result<()> {
+        output::check_writable(&self.out)?;
+        if let Some(p) = &self.plot {
+            output::check_writable(p)?;
+        }
+        Ok(())
+    }
 }
 
 #[derive(Debug, Clone, Copy, ValueEnum)]
@@ -245,17 +264,8 @@ pub struct SweepArgs {
     #[arg(long, default_value = "rtg_discounted", value_name = "NAME")]
     pub estimator: String,
 
-    /// Output format
-    #[arg(long, value_enum, default_value_t = AuditFormat::Table)]
-    pub format: AuditFormat,
-
-    /// Write the report here (atomically) instead of stdout
-    #[arg(long, value_name = "FILE", default_value = "-")]
-    pub out: String,
-
-    /// Also draw bias^2, variance and MSE against the swept parameter, as SVG
-    #[arg(long, value_name = "FILE.svg")]
-    pub plot: Option<String>,
+    #[command(flatten)]
+    pub output: ReportOutput,
 }
 
 impl SweepArgs {
@@ -472,7 +482,7 @@ impl AuditOptions {
 
 impl AuditArgs {
     fn format(&self) -> Format {
-        match self.format {
+        match self.output.format {
             AuditFormat::Table => Format::Table,
             AuditFormat::Json => Format::Json,
             AuditFormat::Csv => Format::Csv,
@@ -515,34 +525,28 @@ pub fn run(cli: Cli) -> Result<u8> {
         Command::Audit(a) => {
             let mut cfg = a.audit.config()?;
             cfg.budget = a.log.budget();
-            output::check_writable(&a.out)?;
+            a.output.check()?;
             cfg.critic = a.audit.fit_critic(&a.log, cfg.gamma)?;
-            if let Some(p) = &a.plot {
-                output::check_writable(p)?;
-            }
             let report = audit::run(a.log.open()?, &cfg)?;
-            output::write(&a.out, &report::render(&report, a.format()))?;
-            if let Some(p) = &a.plot {
+            output::write(&a.output.out, &report::render(&report, a.format()))?;
+            if let Some(p) = &a.output.plot {
                 output::write(p, &report::svg::audit_bars(&report).map_err(Error::usage)?)?;
             }
         }
         Command::Sweep(s) => {
             let mut cfg = s.config()?;
             cfg.audit.budget = s.log.budget();
-            output::check_writable(&s.out)?;
+            s.output.check()?;
             cfg.audit.critic = s.audit.fit_critic(&s.log, cfg.audit.gamma)?;
-            if let Some(p) = &s.plot {
-                output::check_writable(p)?;
-            }
             let report = sweep::run(s.log.open()?, &cfg)?;
-            let text = match s.format {
+            let text = match s.output.format {
                 AuditFormat::Table => report::sweep::render_table(&report),
                 AuditFormat::Json => report::sweep::render_json(&report),
                 AuditFormat::Csv => report::sweep::render_csv(&report),
                 AuditFormat::Markdown => report::sweep::render_markdown(&report),
             };
-            output::write(&s.out, &text)?;
-            if let Some(p) = &s.plot {
+            output::write(&s.output.out, &text)?;
+            if let Some(p) = &s.output.plot {
                 output::write(p, &report::svg::sweep_plot(&report).map_err(Error::usage)?)?;
             }
         }

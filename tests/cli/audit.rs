@@ -1,6 +1,6 @@
 //! `audit`: the JSON contract, the other formats, determinism, output files and usage errors.
 
-use crate::util::{Dir, demo, gradaudit, run};
+use crate::util::{Dir, demo, gradaudit, run, strings};
 use std::collections::BTreeMap;
 
 fn audit_json(args: &[&str]) -> serde_json::Value {
@@ -22,12 +22,7 @@ fn json_carries_the_documented_fields() {
     assert_eq!(v["settings"]["resamples"], 300);
     assert_eq!(v["settings"]["reference"], "rtg");
     assert!(v["settings"]["seed"].is_u64());
-    let names: Vec<&str> = v["estimators"]
-        .as_array()
-        .unwrap()
-        .iter()
-        .map(|e| e["name"].as_str().unwrap())
-        .collect();
+    let names = strings(&v["estimators"], "name");
     for want in [
         "rtg", "total", "gae:0.95", "gae:1", "gae:0", "nstep:5", "td", "whitened",
     ] {
@@ -57,12 +52,7 @@ fn json_carries_the_documented_fields() {
         let sum = e["bias_sq"].as_f64().unwrap() + e["variance"].as_f64().unwrap();
         assert!((mse - sum).abs() <= 1e-12 * mse.max(1.0));
     }
-    let skipped: Vec<&str> = v["skipped"]
-        .as_array()
-        .unwrap()
-        .iter()
-        .map(|s| s["name"].as_str().unwrap())
-        .collect();
+    let skipped = strings(&v["skipped"], "name");
     assert_eq!(skipped, vec!["q", "advantage_q"]);
 }
 

@@ -1,6 +1,6 @@
 //! `--policy`: scores from a policy file, and the choice between logged and computed scores.
 
-use crate::util::{Dir, demo, run};
+use crate::util::{Dir, demo, run, run_json, strings};
 
 #[test]
 fn audit_with_a_policy_matches_the_logged_scores() {
@@ -99,7 +99,7 @@ fn a_log_without_scores_audits_with_a_policy() {
 #[test]
 fn fit_value_gives_a_critic_to_a_log_without_one() {
     let diverter = demo("parcel_diverter.csv");
-    let (code, out, err) = run(&[
+    let v = run_json(&[
         "audit",
         &diverter,
         "--fit-value",
@@ -108,14 +108,7 @@ fn fit_value_gives_a_critic_to_a_log_without_one() {
         "--format",
         "json",
     ]);
-    assert_eq!(code, 0, "{err}");
-    let v: serde_json::Value = serde_json::from_str(&out).unwrap();
-    let names: Vec<&str> = v["estimators"]
-        .as_array()
-        .unwrap()
-        .iter()
-        .map(|e| e["name"].as_str().unwrap())
-        .collect();
+    let names = strings(&v["estimators"], "name");
     for want in ["value_baseline", "td", "gae:0.95", "nstep:5"] {
         assert!(names.contains(&want), "{want} in {names:?}");
     }

@@ -1,6 +1,6 @@
 //! `sweep`: formats, the plot file, and usage errors.
 
-use crate::util::{Dir, demo, run};
+use crate::util::{Dir, demo, run, run_json, strings};
 
 #[test]
 fn lambda_sweep_in_every_format_with_a_plot() {
@@ -56,7 +56,7 @@ fn lambda_sweep_in_every_format_with_a_plot() {
 #[test]
 fn nstep_and_gamma_sweeps() {
     let rover = demo("docking_rover.csv");
-    let (code, out, err) = run(&[
+    let v = run_json(&[
         "sweep",
         &rover,
         "--over",
@@ -66,14 +66,7 @@ fn nstep_and_gamma_sweeps() {
         "--format",
         "json",
     ]);
-    assert_eq!(code, 0, "{err}");
-    let v: serde_json::Value = serde_json::from_str(&out).unwrap();
-    let labels: Vec<&str> = v["points"]
-        .as_array()
-        .unwrap()
-        .iter()
-        .map(|p| p["label"].as_str().unwrap())
-        .collect();
+    let labels = strings(&v["points"], "label");
     assert_eq!(labels, ["1", "2", "4", "8", "16", "32", "64", "full"]);
     let diverter = demo("parcel_diverter.csv");
     let (code, out, err) = run(&["sweep", &diverter, "--over", "gamma", "--resamples", "100"]);

@@ -56,3 +56,19 @@ pub fn run(args: &[&str]) -> (i32, String, String) {
         String::from_utf8_lossy(&out.stderr).into_owned(),
     )
 }
+
+/// Runs the binary, expects exit 0, and parses stdout as JSON.
+pub fn run_json(args: &[&str]) -> serde_json::Value {
+    let (code, out, err) = run(args);
+    assert_eq!(code, 0, "{args:?}: {err}");
+    serde_json::from_str(&out).expect("stdout is JSON")
+}
+
+/// The string field `key` of every element of the JSON array `list`.
+pub fn strings<'a>(list: &'a serde_json::Value, key: &str) -> Vec<&'a str> {
+    list.as_array()
+        .expect("a JSON array")
+        .iter()
+        .map(|e| e[key].as_str().expect("a string field"))
+        .collect()
+}
