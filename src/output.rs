@@ -34,10 +34,17 @@ pub fn write(path: &str, text: &str) -> Result<()> {
             other => other.map_err(|e| Error::io("<stdout>", e)),
         };
     }
-    let mut tmp = tempfile::NamedTempFile::new_in(folder(path)).map_err(|e| Error::io(path, e))?;
+    let failed = |e: std::io::Error| {
+        Error::usage(format!(
+            "{path}: could not write the report ({}); an existing file there is left as it was",
+            e.kind()
+        ))
+    };
+    let mut tmp = tempfile::NamedTempFile::new_in(folder(path)).map_err(failed)?;
     tmp.write_all(text.as_bytes())
         .and_then(|_| tmp.as_file().sync_all())
-        .map_err(|e| Error::io(path, e))?;
-    tmp.persist(path).map_err(|e| Error::io(path, e.error))?;
+        .map_err(failed)?;
+    // On any error the temporary file is removed when `tmp` (or the error holding it) drops.
+    tmp.persist(path).map_err(|e| failed(e.error))?;
     Ok(())
 }
