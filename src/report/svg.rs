@@ -3,6 +3,7 @@
 
 use super::AuditReport;
 use crate::sweep::SweepReport;
+use plotters::coord::CoordTranslate;
 use plotters::coord::ranged1d::SegmentValue;
 use plotters::prelude::*;
 
@@ -13,6 +14,24 @@ const BAND: RGBColor = RGBColor(60, 170, 90);
 
 fn failed<E: std::fmt::Debug>(e: E) -> String {
     format!("could not draw the plot: {e:?}")
+}
+
+/// Draws the series legend, framed, at `position`.
+fn legend<'a, DB, CT>(
+    chart: &mut ChartContext<'a, DB, CT>,
+    position: SeriesLabelPosition,
+) -> Result<(), String>
+where
+    DB: DrawingBackend + 'a,
+    CT: CoordTranslate,
+{
+    chart
+        .configure_series_labels()
+        .position(position)
+        .background_style(WHITE.mix(0.85))
+        .border_style(BLACK)
+        .draw()
+        .map_err(failed)
 }
 
 /// The sweep's bias^2, variance and MSE against the swept parameter, log scale, with the
@@ -127,14 +146,8 @@ pub fn sweep_plot(r: &SweepReport) -> Result<String, String> {
                 r.points[rec].label
             ))
             .legend(|(x, y)| Circle::new((x + 10, y), 6, BAND.stroke_width(3)));
-        chart
-            .configure_series_labels()
-            // The lower left is where the curves rarely go: small errors at small parameters.
-            .position(SeriesLabelPosition::LowerLeft)
-            .background_style(WHITE.mix(0.85))
-            .border_style(BLACK)
-            .draw()
-            .map_err(failed)?;
+        // The lower left is where the curves rarely go: small errors at small parameters.
+        legend(&mut chart, SeriesLabelPosition::LowerLeft)?;
         root.present().map_err(failed)?;
     }
     Ok(svg)
@@ -237,14 +250,8 @@ pub fn audit_bars(r: &AuditReport) -> Result<String, String> {
             .map_err(failed)?
             .label("variance")
             .legend(|(x, y)| Rectangle::new([(x, y - 5), (x + 20, y + 5)], VARIANCE.filled()));
-        chart
-            .configure_series_labels()
-            // The lowest-MSE (shortest) bars are on top, so the upper right stays clear.
-            .position(SeriesLabelPosition::UpperRight)
-            .background_style(WHITE.mix(0.85))
-            .border_style(BLACK)
-            .draw()
-            .map_err(failed)?;
+        // The lowest-MSE (shortest) bars are on top, so the upper right stays clear.
+        legend(&mut chart, SeriesLabelPosition::UpperRight)?;
         root.present().map_err(failed)?;
     }
     Ok(svg)
