@@ -158,11 +158,15 @@ pub fn select(
     Ok((chosen, skipped))
 }
 
-/// Orders episode ids canonically: numerically when both are integers, else as text.
+/// Orders episode ids canonically: integer ids first, by value, then all others as text.
+/// (Comparing "numerically when both are integers, else as text" is not a total order for
+/// mixed ids: 9 < 10 < "1a" < 9. A sort needs a total order, and would panic without one.)
 fn id_order(a: &str, b: &str) -> Ordering {
     match (a.parse::<i64>(), b.parse::<i64>()) {
         (Ok(x), Ok(y)) => x.cmp(&y),
-        _ => a.cmp(b),
+        (Ok(_), Err(_)) => Ordering::Less,
+        (Err(_), Ok(_)) => Ordering::Greater,
+        (Err(_), Err(_)) => a.cmp(b),
     }
 }
 

@@ -558,3 +558,19 @@ fn the_contribution_matrix_respects_the_memory_budget() {
         "{e}"
     );
 }
+
+// Regression: ids mixing integers and text ("9", "10", "1a") once made the id comparison
+// cyclic (9 < 10 < "1a" < 9), which a sort may reject with a panic. The order is now total:
+// integers by value, then text.
+#[test]
+fn mixed_integer_and_text_episode_ids_sort_totally() {
+    let mut ids = vec!["1a", "10", "9", "b", "-3", "10x", "2"];
+    ids.sort_by(|a, b| id_order(a, b));
+    assert_eq!(ids, vec!["-3", "2", "9", "10", "10x", "1a", "b"]);
+    let mut text = String::from("episode,reward,terminated,score_0\n");
+    for id in ["1a", "10", "9", "b", "2", "10x"] {
+        text.push_str(&format!("{id},1,1,{}\n", id.len()));
+    }
+    let r = audit_text(&text, &cfg("rtg", 0.99));
+    assert_eq!(r.input.episodes, 6);
+}
