@@ -45,7 +45,7 @@ rss() { # command...
   echo "== parse floor and audit, 1M rows (5000 x 200, d = 32)"
   ls -l bench-data/rover_1m.csv | awk '{printf "file: %.0f MB\n", $5/1e6}'
   hf floor_1m 5 "$bin inspect bench-data/rover_1m.csv" \
-                "env RAYON_NUM_THREADS=1 $bin inspect bench-data/rover_1m.csv"
+                "taskset -c 0 env RAYON_NUM_THREADS=1 $bin inspect bench-data/rover_1m.csv"
   hf audit_1m 5 "$bin audit bench-data/rover_1m.csv"
   hf sweep_1m 5 "$bin sweep bench-data/rover_1m.csv --over lambda"
   rss "$bin" audit bench-data/rover_1m.csv
