@@ -142,8 +142,13 @@ impl LogReader {
                 format!("cannot read the header row: {:?}", e.kind()),
             )
         })?;
-        let data_start = csv.position().byte() as usize;
-        let data_line = csv.position().line();
+        // Where the data starts, past any line breaks (see rows::LineCounter for why the csv
+        // crate's own line count is not used).
+        let mut data_start = csv.position().byte() as usize;
+        while data_start < first.bytes.len() && matches!(first.bytes[data_start], b'\r' | b'\n') {
+            data_start += 1;
+        }
+        let data_line = 1 + memchr::memchr_iter(b'\n', &first.bytes[..data_start]).count() as u64;
         if header.len() > crate::limits::MAX_COLUMNS {
             return Err(Error::input(
                 Position {
