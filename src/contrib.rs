@@ -15,7 +15,7 @@
 //! paired difference, so a replicate's own MSE estimate needs no second bootstrap level.
 
 use crate::episode::Episode;
-use crate::estimator::{Estimator, Scratch, scan};
+use crate::estimator::{Estimator, scan};
 use ndarray::ArrayView2;
 
 /// Why a gradient came out as it did, when that needs saying.
@@ -39,6 +39,8 @@ pub struct Plan {
     moments: Option<(usize, usize)>,
     /// Column offset of each estimator's per-episode gradient, or None for batch-dependent.
     offsets: Vec<Option<usize>>,
+    /// (estimator index, column offset) of the per-episode estimators, in order.
+    linear: Vec<(usize, usize)>,
     /// Start of the auxiliary block, when present.
     aux: Option<usize>,
     width: usize,
@@ -55,7 +57,7 @@ impl Plan {
     pub fn with_gammas(estimators: Vec<Estimator>, gammas: Vec<f64>, gamma: f64, d: usize) -> Plan {
         assert_eq!(estimators.len(), gammas.len());
         let mut next = 0;
-        let offsets = estimators
+        let offsets: Vec<Option<usize>> = estimators
             .iter()
             .map(|e| {
                 (!e.batch_dependent()).then(|| {
@@ -63,6 +65,11 @@ impl Plan {
                     next - d
                 })
             })
+            .collect();
+        let linear = offsets
+            .iter()
+            .enumerate()
+            .filter_map(|(k, off)| off.map(|o| (k, o)))
             .collect();
         let aux = estimators
             .iter()
@@ -76,6 +83,7 @@ impl Plan {
             d,
             moments: None,
             offsets,
+            linear,
             aux,
             width,
         }
@@ -114,22 +122,25 @@ impl Plan {
         let t_len = ep.len();
         // Psi of every per-episode estimator as the columns of a T x L matrix, then all
         // gradients at once: G = Psi^T S (L x d), one matrix product instead of L loops.
-        let linear: Vec<(usize, usize)> = self
-            .offsets
-            .iter()
-            .enumerate()
-            .filter_map(|(k, off)| off.map(|o| (k, o)))
-            .collect();
+        let linear = &self.linear;
         work.psis.clear();
         work.psis.resize(t_len * linear.len(), 0.0);
+        // Returns and TD residuals are shared by every estimator at the same gamma: computed
+        // once per gamma, not once per estimator.
         let mut g_gamma = None;
         for (col, &(k, _)) in linear.iter().enumerate() {
             let gamma = self.gammas[k];
             if g_gamma != Some(gamma) {
                 scan::discounted_returns(&ep.rewards, gamma, &mut work.g);
+                match &ep.values {
+                    Some(v) => {
+                        scan::td_residuals(&ep.rewards, v, ep.tail_value(), gamma, &mut work.deltas)
+                    }
+                    None => work.deltas.clear(),
+                }
                 g_gamma = Some(gamma);
             }
-            self.estimators[k].psi(ep, gamma, &work.g, &mut work.scratch, &mut work.psi);
+            self.estimators[k].psi(ep, gamma, &work.g, &work.deltas, &mut work.psi);
             for (t, p) in work.psi.iter().enumerate() {
                 work.psis[t * linear.len() + col] = *p;
             }
@@ -223,5 +234,5 @@ pub struct Work {
     g: Vec<f64>,
     psi: Vec<f64>,
     psis: Vec<f64>,
-    scratch: Scratch,
+    deltas: Vec<f64>,
 }

@@ -147,13 +147,15 @@ impl Estimator {
         matches!(self, Estimator::MeanBaseline | Estimator::Whitened)
     }
 
-    /// Psi_t for a per-episode estimator, into `out` (length T). `work` holds scratch space;
-    /// `g` must hold the discounted returns of the episode at the same gamma.
+    /// Psi_t for a per-episode estimator, into `out` (length T). `g` must hold the discounted
+    /// returns of the episode and `deltas` its TD residuals, both at `gamma` (`deltas` may be
+    /// empty when the episode has no values); the caller computes them once per gamma, since
+    /// several estimators share them.
     ///
     /// # Panics
     /// For batch-dependent estimators (they have no per-episode Psi) and when a needed column
     /// is absent; callers filter by [`Estimator::needs`] first.
-    pub fn psi(self, ep: &Episode, gamma: f64, g: &[f64], work: &mut Scratch, out: &mut Vec<f64>) {
+    pub fn psi(self, ep: &Episode, gamma: f64, g: &[f64], deltas: &[f64], out: &mut Vec<f64>) {
         let values = || {
             ep.values
                 .as_deref()
@@ -169,23 +171,20 @@ impl Estimator {
             Estimator::ValueBaseline => out.extend(g.iter().zip(values()).map(|(g, v)| g - v)),
             Estimator::Q => out.extend_from_slice(q()),
             Estimator::AdvantageQ => out.extend(q().iter().zip(values()).map(|(q, v)| q - v)),
-            Estimator::Td => scan::td_residuals(&ep.rewards, values(), ep.tail_value(), gamma, out),
+            Estimator::Td => {
+                debug_assert_eq!(deltas.len(), t_len, "TD residuals computed by the caller");
+                out.extend_from_slice(deltas);
+            }
             Estimator::NStep(n) => scan::nstep(g, values(), ep.tail_value(), gamma, n, out),
             Estimator::Gae(lambda) => {
-                scan::td_residuals(&ep.rewards, values(), ep.tail_value(), gamma, &mut work.a);
-                scan::gae(&work.a, gamma, lambda, out);
+                debug_assert_eq!(deltas.len(), t_len, "TD residuals computed by the caller");
+                scan::gae(deltas, gamma, lambda, out);
             }
             Estimator::MeanBaseline | Estimator::Whitened => {
                 panic!("{self} has no per-episode return proxy")
             }
         }
     }
-}
-
-/// Reusable buffers for [`Estimator::psi`].
-#[derive(Debug, Default)]
-pub struct Scratch {
-    a: Vec<f64>,
 }
 
 impl fmt::Display for Estimator {
