@@ -275,7 +275,7 @@ impl SweepArgs {
                 "sweep takes --grid (and --estimator for gamma sweeps), not --estimators",
             ));
         }
-        let audit = self.audit.config()?;
+        let audit = self.audit.config(&self.log)?;
         let over = match self.over {
             SweepOver::Lambda => Over::Lambda,
             SweepOver::Nstep => Over::Nstep,
@@ -332,6 +332,17 @@ impl LogArgs {
             crate::limits::Budget::default,
             crate::limits::Budget::from_mb,
         )
+    }
+
+    /// The first pass of --fit-value: fits a critic on the log (which must be a file: it is
+    /// read again to apply the critic).
+    pub fn fit_critic(&self, fit: &crate::critic::FitConfig) -> Result<crate::critic::Critic> {
+        if self.log == "-" {
+            return Err(Error::usage(
+                "--fit-value reads the log twice (fit, then apply); give a file, not stdin",
+            ));
+        }
+        crate::critic::fit(self.open()?, fit)
     }
 
     pub fn open(&self) -> Result<LogReader> {
@@ -431,11 +442,6 @@ impl AuditOptions {
         if !self.fit_value {
             return Ok(None);
         }
-        if log.log == "-" {
-            return Err(Error::usage(
-                "--fit-value reads the log twice (fit, then apply); give a file, not stdin",
-            ));
-        }
         if !(self.ridge >= 0.0 && self.ridge.is_finite()) {
             return Err(Error::usage("--ridge must be a number >= 0"));
         }
@@ -445,10 +451,11 @@ impl AuditOptions {
             gamma,
             in_sample: false,
         };
-        crate::critic::fit(log.open()?, &fit).map(Some)
+        log.fit_critic(&fit).map(Some)
     }
 
-    pub fn config(&self) -> Result<AuditConfig> {
+    /// The audit's config; `log` supplies the memory budget.
+    pub fn config(&self, log: &LogArgs) -> Result<AuditConfig> {
         let estimators = match &self.estimators {
             Some(list) => Some(
                 Estimator::parse_list(list)
@@ -473,6 +480,7 @@ impl AuditOptions {
                 ScoresFromArg::Columns => crate::audit::ScoresFrom::Columns,
             }),
             sketch: self.score_sketch,
+            budget: log.budget(),
             ..AuditConfig::default()
         };
         cfg.validate()?;
@@ -502,16 +510,11 @@ pub fn run(cli: Cli) -> Result<u8> {
                 )));
             }
             let critic = if a.fit_value {
-                if a.log.log == "-" {
-                    return Err(Error::usage(
-                        "--fit-value reads the log twice; give a file, not stdin",
-                    ));
-                }
                 let fit = crate::critic::FitConfig {
                     gamma: a.gamma,
                     ..Default::default()
                 };
-                Some(crate::critic::fit(a.log.open()?, &fit)?)
+                Some(a.log.fit_critic(&fit)?)
             } else {
                 None
             };
@@ -523,8 +526,7 @@ pub fn run(cli: Cli) -> Result<u8> {
             output::write("-", &text)?;
         }
         Command::Audit(a) => {
-            let mut cfg = a.audit.config()?;
-            cfg.budget = a.log.budget();
+            let mut cfg = a.audit.config(&a.log)?;
             a.output.check()?;
             cfg.critic = a.audit.fit_critic(&a.log, cfg.gamma)?;
             let report = audit::run(a.log.open()?, &cfg)?;
@@ -535,7 +537,6 @@ pub fn run(cli: Cli) -> Result<u8> {
         }
         Command::Sweep(s) => {
             let mut cfg = s.config()?;
-            cfg.audit.budget = s.log.budget();
             s.output.check()?;
             cfg.audit.critic = s.audit.fit_critic(&s.log, cfg.audit.gamma)?;
             let report = sweep::run(s.log.open()?, &cfg)?;
@@ -551,8 +552,7 @@ pub fn run(cli: Cli) -> Result<u8> {
             }
         }
         Command::Gate(g) => {
-            let mut cfg = g.audit.config()?;
-            cfg.budget = g.log.budget();
+            let mut cfg = g.audit.config(&g.log)?;
             let rules = g.rule_set()?;
             let baseline = g.baseline.as_deref().map(Baseline::load).transpose()?;
             output::check_writable(&g.out)?;
