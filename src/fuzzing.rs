@@ -10,12 +10,11 @@ pub fn reader(bytes: &[u8]) {
         progress: Progress::Hidden,
         ..ReadOptions::default()
     };
-    let input: Box<dyn std::io::Read + Send> = if bytes.starts_with(&[0x1f, 0x8b]) {
-        Box::new(flate2::read::MultiGzDecoder::new(std::io::Cursor::new(
-            bytes.to_vec(),
-        )))
-    } else {
-        Box::new(std::io::Cursor::new(bytes.to_vec()))
+    // The same gzip detection as a log opened from a path.
+    let Ok((input, _)) =
+        crate::log::source::decompressed(Box::new(std::io::Cursor::new(bytes.to_vec())))
+    else {
+        return;
     };
     if let Ok(mut r) = LogReader::from_reader(input, "fuzz.csv", &opts, None) {
         while let Ok(Some(_)) = r.next_episode() {}

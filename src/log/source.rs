@@ -58,17 +58,23 @@ pub fn open(path: &str, progress: Progress) -> Result<Source> {
         Some(bar) => Box::new(bar.wrap_read(raw)),
         None => raw,
     };
-    let mut buffered = BufReader::with_capacity(1 << 16, counted);
-    let magic = buffered.fill_buf().map_err(|e| Error::io(&name, e))?;
-    let compressed = magic.starts_with(&[0x1f, 0x8b]);
-    let reader: Box<dyn Read + Send> = if compressed {
-        Box::new(flate2::bufread::MultiGzDecoder::new(buffered))
-    } else {
-        Box::new(buffered)
-    };
+    let (reader, compressed) = decompressed(counted).map_err(|e| Error::io(&name, e))?;
     Ok(Source {
         reader,
         bar,
         compressed,
     })
+}
+
+/// Buffers a byte stream and, if it starts with gzip's magic bytes (whatever the file is
+/// called), decompresses it; also says whether it did.
+pub fn decompressed(raw: Box<dyn Read + Send>) -> io::Result<(Box<dyn Read + Send>, bool)> {
+    let mut buffered = BufReader::with_capacity(1 << 16, raw);
+    let compressed = buffered.fill_buf()?.starts_with(&[0x1f, 0x8b]);
+    let reader: Box<dyn Read + Send> = if compressed {
+        Box::new(flate2::bufread::MultiGzDecoder::new(buffered))
+    } else {
+        Box::new(buffered)
+    };
+    Ok((reader, compressed))
 }
