@@ -99,6 +99,18 @@ fn parse_values(spec: &str) -> Result<Vec<String>, String> {
     Ok(out)
 }
 
+/// A grid value that must be a number in [0, 1] (lambda, gamma).
+fn unit_interval(name: &str, text: &str) -> Result<f64, String> {
+    let x: f64 = text
+        .parse()
+        .map_err(|_| format!("{name} '{text}' is not a number"))?;
+    if (0.0..=1.0).contains(&x) {
+        Ok(x)
+    } else {
+        Err(format!("{name} {text} must lie in [0, 1]"))
+    }
+}
+
 /// Parses a grid spec (a comma list, or start:stop:step) for `over`. `family` is the estimator
 /// swept over gamma; `gamma` the discount of lambda and n sweeps.
 pub fn parse_grid(
@@ -112,12 +124,7 @@ pub fn parse_grid(
     for text in values {
         let point = match over {
             Over::Lambda => {
-                let l: f64 = text
-                    .parse()
-                    .map_err(|_| format!("lambda '{text}' is not a number"))?;
-                if !(0.0..=1.0).contains(&l) {
-                    return Err(format!("lambda {text} must lie in [0, 1]"));
-                }
+                let l = unit_interval("lambda", &text)?;
                 GridPoint {
                     label: format!("{l}"),
                     value: l,
@@ -145,12 +152,7 @@ pub fn parse_grid(
                 }
             }
             Over::Gamma => {
-                let g: f64 = text
-                    .parse()
-                    .map_err(|_| format!("gamma '{text}' is not a number"))?;
-                if !(0.0..=1.0).contains(&g) {
-                    return Err(format!("gamma {text} must lie in [0, 1]"));
-                }
+                let g = unit_interval("gamma", &text)?;
                 GridPoint {
                     label: format!("{g}"),
                     value: g,
