@@ -246,11 +246,6 @@ impl LogReader {
         &self.warnings
     }
 
-    /// Episodes currently open (started, not yet ended).
-    pub fn open_episodes(&self) -> usize {
-        self.open.len()
-    }
-
     /// The next finished episode, in the order their end rows appear; episodes still open at
     /// the end of the file follow, in the order they started.
     pub fn next_episode(&mut self) -> Result<Option<Episode>> {
