@@ -1,17 +1,23 @@
 //! Regression gating: a previous report (from `audit --format json` or `gate --format json`) is
 //! the baseline; a statistic may not get worse than there by more than a tolerance. Reports are
 //! compared only when they were made with compatible settings.
+//!
+//! Accepted: exactly the schemas this build writes (`gradaudit.audit/1`, or `gradaudit.gate/1`
+//! with the audit inside), including the nulls it writes for undefined figures; any other version
+//! is refused before its fields are read, since its layout may differ anywhere. Errors carry the
+//! line and column that serde_json reports in the file itself.
 
 use super::rules::RegressionRule;
 use super::{Figures, Stat};
 use crate::error::{Error, Position, Result};
-use crate::report::AuditReport;
+use crate::report::{AuditReport, Tool};
 use serde::{Deserialize, Serialize};
 
-#[derive(Debug, Clone, Deserialize)]
-struct WireTool {
-    schema: String,
-}
+/// The schema of `gate --format json`, whose `audit` field holds the audit report.
+const GATE_SCHEMA: &str = "gradaudit.gate/1";
+
+const HINT: &str =
+    "pass a file written by `gradaudit audit --format json` or `gradaudit gate --format json`";
 
 #[derive(Debug, Clone, Deserialize)]
 struct WireSettings {
@@ -31,9 +37,10 @@ struct WireInput {
 #[derive(Debug, Clone, Deserialize)]
 struct WireRow {
     name: String,
-    variance: f64,
-    bias_sq: f64,
-    mse: f64,
+    // Null where a figure overflowed f64 (the report says so in its notes).
+    variance: Option<f64>,
+    bias_sq: Option<f64>,
+    mse: Option<f64>,
     snr: Option<f64>,
     ess: Option<f64>,
     cosine_half: Option<f64>,
@@ -42,11 +49,16 @@ struct WireRow {
 
 #[derive(Debug, Clone, Deserialize)]
 struct WireAudit {
-    tool: WireTool,
     input: WireInput,
     settings: WireSettings,
-    signal: f64,
+    signal: Option<f64>,
     estimators: Vec<WireRow>,
+}
+
+/// A gate report: only its audit is read.
+#[derive(Debug, Clone, Deserialize)]
+struct WireGate {
+    audit: WireAudit,
 }
 
 /// The parts of a previous report that regression checks read.
@@ -59,33 +71,18 @@ pub struct Baseline {
 impl Baseline {
     /// Reads an audit report, or the audit inside a gate report.
     pub fn from_json(text: &str, file: &str) -> Result<Baseline> {
-        let bad = |e: serde_json::Error| {
-            Error::input_hint(
-                Position {
-                    file: file.to_string(),
-                    line: Some(e.line() as u64),
-                    column: None,
-                },
-                format!("not a gradaudit report: {e}"),
-                "pass a file written by `gradaudit audit --format json` or `gradaudit gate \
-                 --format json`",
-            )
-        };
+        let bad = |e: serde_json::Error| json_error(file, e);
         let value: serde_json::Value = serde_json::from_str(text).map_err(bad)?;
-        let inner = match value.get("audit") {
-            Some(a) => a.clone(),
-            None => value,
+        let audit = match schema_of(&value) {
+            Some(GATE_SCHEMA) => {
+                check_schema(text, file, schema_of(&value["audit"]))?;
+                serde_json::from_str::<WireGate>(text).map_err(bad)?.audit
+            }
+            schema => {
+                check_schema(text, file, schema)?;
+                serde_json::from_str::<WireAudit>(text).map_err(bad)?
+            }
         };
-        let audit: WireAudit = serde_json::from_value(inner).map_err(bad)?;
-        if !audit.tool.schema.starts_with("gradaudit.audit/") {
-            return Err(Error::input(
-                Position {
-                    file: file.to_string(),
-                    ..Default::default()
-                },
-                format!("unsupported report schema '{}'", audit.tool.schema),
-            ));
-        }
         Ok(Baseline {
             file: file.to_string(),
             audit,
@@ -155,22 +152,91 @@ impl Baseline {
         Ok(notes)
     }
 
-    fn figures(&self, name: &str) -> Option<Figures> {
-        self.audit
-            .estimators
-            .iter()
-            .find(|e| e.name == name)
-            .map(|r| Figures {
-                variance: r.variance,
-                bias_sq: r.bias_sq,
-                mse: r.mse,
+    /// The baseline's value of `stat` for the estimator `name`; None where it is not there or
+    /// undefined (null in the file).
+    fn stat(&self, name: &str, stat: Stat) -> Option<f64> {
+        let r = self.audit.estimators.iter().find(|e| e.name == name)?;
+        match stat {
+            Stat::Variance => r.variance,
+            Stat::BiasSq => r.bias_sq,
+            Stat::Mse => r.mse,
+            Stat::Snr => r.snr,
+            Stat::Ess => r.ess,
+            Stat::CosineHalf => r.cosine_half,
+            Stat::EpisodesForSnr => r.episodes_for_snr.map(|n| n as f64),
+            // Derived as for the current report; undefined when a figure they need is null.
+            Stat::RelativeBias | Stat::RelativeVariance => Figures {
+                variance: r.variance?,
+                bias_sq: r.bias_sq?,
+                mse: r.mse?,
                 snr: r.snr,
                 ess: r.ess,
                 cosine_half: r.cosine_half,
                 episodes_for_snr: r.episodes_for_snr,
-                signal: self.audit.signal,
-            })
+                signal: self.audit.signal?,
+            }
+            .stat(stat),
+        }
     }
+}
+
+/// `tool.schema` of a report value, when it is a string.
+fn schema_of(value: &serde_json::Value) -> Option<&str> {
+    value.get("tool")?.get("schema")?.as_str()
+}
+
+/// Refuses a report whose schema this build does not write, naming the line where it stands.
+fn check_schema(text: &str, file: &str, schema: Option<&str>) -> Result<()> {
+    let expected = Tool::current().schema;
+    let Some(found) = schema else {
+        return Err(Error::input_hint(
+            at(file, 1, 0),
+            "not a gradaudit report: no tool.schema",
+            HINT,
+        ));
+    };
+    if found == expected {
+        return Ok(());
+    }
+    // The first place the quoted schema string appears is where a reader should look.
+    let (line, column) = text
+        .find(&format!("\"{found}\""))
+        .map_or((1, 0), |offset| line_column(text, offset));
+    Err(Error::input_hint(
+        at(file, line, column),
+        format!(
+            "unsupported report schema '{found}' (this gradaudit reads '{expected}' and '{GATE_SCHEMA}')"
+        ),
+        "re-create the baseline with this version of gradaudit",
+    ))
+}
+
+/// 1-based line and column of a byte offset.
+fn line_column(text: &str, offset: usize) -> (usize, usize) {
+    let before = &text[..offset];
+    let line = before.matches('\n').count() + 1;
+    let column = before.len() - before.rfind('\n').map_or(0, |i| i + 1) + 1;
+    (line, column)
+}
+
+fn at(file: &str, line: usize, column: usize) -> Position {
+    Position {
+        file: file.to_string(),
+        line: Some(line as u64),
+        column: (column > 0).then(|| (column, String::from("json"))),
+    }
+}
+
+/// A serde_json error at its line and column, its message without the repeated position.
+fn json_error(file: &str, e: serde_json::Error) -> Error {
+    let text = e.to_string();
+    let suffix = format!(" at line {} column {}", e.line(), e.column());
+    let message = text.strip_suffix(&suffix).unwrap_or(&text);
+    Error::input_hint(
+        at(file, e.line(), e.column()),
+        format!("not a gradaudit report: {message}"),
+        HINT,
+    )
 }
 
 /// One regression check on one estimator.
@@ -205,10 +271,7 @@ impl Regression<'_> {
             rows.sort_by(|a, b| a.name.cmp(&b.name));
             for row in rows {
                 let now = Figures::of(current, row).stat(rule.stat);
-                let before = self
-                    .baseline
-                    .figures(&row.name)
-                    .and_then(|f| f.stat(rule.stat));
+                let before = self.baseline.stat(&row.name, rule.stat);
                 out.push(compare(&row.name, rule, before, now));
             }
         }

@@ -1,8 +1,16 @@
 //! The bad-input corpus (tests/fixtures/bad/, one file per failure class): each file gives the
 //! expected exit code, its message names what the table says (the line and the column where
 //! one field is at fault), and stderr never shows a panic or a backtrace.
+//!
+//! The command is split on spaces and the file appended; `LOG` stands for the demo rover log
+//! (for files that are not the log, such as a `--baseline`).
 
-use crate::util::run;
+use crate::util::{demo, run};
+
+/// A gate on the demo log whose settings match the baseline fixtures (made from this command's
+/// `audit ... --format json`).
+const GATE_BASELINE: &str =
+    "gate LOG --estimators rtg,total --resamples 300 --splits 20 --baseline";
 
 /// (file, failure class, command, exit code, fragments the message must contain)
 const CASES: &[(&str, &str, &str, i32, &[&str])] = &[
@@ -139,6 +147,30 @@ const CASES: &[(&str, &str, &str, i32, &[&str])] = &[
         2,
         &["1 episode(s)", "at least 2"],
     ),
+    (
+        "baseline_schema_v2.json",
+        "baseline of an unknown schema version",
+        GATE_BASELINE,
+        2,
+        &[
+            "line 5, column 15",
+            "unsupported report schema 'gradaudit.audit/2'",
+        ],
+    ),
+    (
+        "baseline_wrong_type.json",
+        "baseline with a wrong type",
+        GATE_BASELINE,
+        2,
+        &["line 110, column 25", "invalid type: string \"large\""],
+    ),
+    (
+        "baseline_nulls.json",
+        "baseline with nulls (accepted)",
+        GATE_BASELINE,
+        0,
+        &[],
+    ),
     ("bom.csv", "BOM (accepted)", "inspect", 0, &[]),
     ("crlf.csv", "CRLF (accepted)", "inspect", 0, &[]),
 ];
@@ -156,7 +188,13 @@ fn every_corpus_file_behaves_as_its_class_says() {
     }
     for (file, class, command, code, wants) in CASES {
         let path = format!("{dir}/{file}");
-        let (got, out, err) = run(&[command, &path]);
+        let log = demo("docking_rover.csv");
+        let mut args: Vec<&str> = command
+            .split(' ')
+            .map(|w| if w == "LOG" { log.as_str() } else { w })
+            .collect();
+        args.push(&path);
+        let (got, out, err) = run(&args);
         assert_eq!(got, *code, "{class} ({file}): {err}{out}");
         if *code == 2 {
             assert!(
