@@ -218,14 +218,40 @@ pub struct ReportOutput {
     pub plot: Option<String>,
 }
 
+/// The checked outputs of `audit` or `sweep`: the report and the optional plot.
+struct ReportSlots {
+    outputs: output::Outputs,
+    out: output::Slot,
+    plot: Option<output::Slot>,
+}
+
 impl ReportOutput {
-    /// Fails early on paths that cannot be written.
-    fn check(&self) -> Result<()> {
-        output::check_writable(&self.out)?;
-        if let Some(p) = &self.plot {
-            output::check_writable(p)?;
+    /// Checks every output path before any reading; none may be one of `inputs`.
+    fn check(&self, inputs: &[&str]) -> Result<ReportSlots> {
+        let mut outputs = output::Outputs::new(inputs);
+        let out = outputs.add("--out", &self.out)?;
+        let plot = self
+            .plot
+            .as_deref()
+            .map(|p| outputs.add("--plot", p))
+            .transpose()?;
+        output::test_pause("checked");
+        Ok(ReportSlots { outputs, out, plot })
+    }
+}
+
+impl ReportSlots {
+    /// Writes the report and, when asked for, the plot (`svg` renders it): both or neither.
+    fn write(
+        self,
+        text: String,
+        svg: impl FnOnce() -> std::result::Result<String, String>,
+    ) -> Result<()> {
+        let mut texts = vec![(self.out, text)];
+        if let Some(p) = self.plot {
+            texts.push((p, svg().map_err(Error::usage)?));
         }
-        Ok(())
+        self.outputs.write(texts)
     }
 }
 
@@ -525,56 +551,79 @@ pub fn run(cli: Cli) -> Result<u8> {
             };
             output::write("-", &text)?;
         }
-        Command::Audit(a) => {
-            let mut cfg = a.audit.config(&a.log)?;
-            a.output.check()?;
-            cfg.critic = a.audit.fit_critic(&a.log, cfg.gamma)?;
-            let report = audit::run(a.log.open()?, &cfg)?;
-            output::write(&a.output.out, &report::render(&report, a.format()))?;
-            if let Some(p) = &a.output.plot {
-                output::write(p, &report::svg::audit_bars(&report).map_err(Error::usage)?)?;
-            }
-        }
-        Command::Sweep(s) => {
-            let mut cfg = s.config()?;
-            s.output.check()?;
-            cfg.audit.critic = s.audit.fit_critic(&s.log, cfg.audit.gamma)?;
-            let report = sweep::run(s.log.open()?, &cfg)?;
-            let text = match s.output.format {
-                AuditFormat::Table => report::sweep::render_table(&report),
-                AuditFormat::Json => report::sweep::render_json(&report),
-                AuditFormat::Csv => report::sweep::render_csv(&report),
-                AuditFormat::Markdown => report::sweep::render_markdown(&report),
-            };
-            output::write(&s.output.out, &text)?;
-            if let Some(p) = &s.output.plot {
-                output::write(p, &report::svg::sweep_plot(&report).map_err(Error::usage)?)?;
-            }
-        }
-        Command::Gate(g) => {
-            let mut cfg = g.audit.config(&g.log)?;
-            let rules = g.rule_set()?;
-            let baseline = g.baseline.as_deref().map(Baseline::load).transpose()?;
-            output::check_writable(&g.out)?;
-            if let Some(j) = &g.junit {
-                output::check_writable(j)?;
-            }
-            gate::include_named(&mut cfg, &rules);
-            cfg.critic = g.audit.fit_critic(&g.log, cfg.gamma)?;
-            let result = gate::run(audit::run(g.log.open()?, &cfg)?, &rules, baseline.as_ref())?;
-            let text = match g.format {
-                GateFormat::Text => report::gate::render_text(&result),
-                GateFormat::Markdown => report::gate::render_markdown(&result),
-                GateFormat::Json => report::gate::render_json(&result),
-            };
-            output::write(&g.out, &text)?;
-            if let Some(j) = &g.junit {
-                output::write(j, &report::gate::render_junit(&result))?;
-            }
-            if !result.passed {
-                return Ok(exit::CHECK_FAILED);
-            }
-        }
+        Command::Audit(a) => return run_audit(a),
+        Command::Sweep(s) => return run_sweep(s),
+        Command::Gate(g) => return run_gate(g),
     }
     Ok(exit::OK)
+}
+
+impl AuditOptions {
+    /// The input files of an audit that no output may replace (the log, the policy).
+    fn inputs<'a>(&'a self, log: &'a LogArgs) -> Vec<&'a str> {
+        let mut inputs = vec![log.log.as_str()];
+        inputs.extend(self.policy.as_deref());
+        inputs
+    }
+}
+
+fn run_audit(a: AuditArgs) -> Result<u8> {
+    let mut cfg = a.audit.config(&a.log)?;
+    let slots = a.output.check(&a.audit.inputs(&a.log))?;
+    cfg.critic = a.audit.fit_critic(&a.log, cfg.gamma)?;
+    let report = audit::run(a.log.open()?, &cfg)?;
+    slots.write(report::render(&report, a.format()), || {
+        report::svg::audit_bars(&report)
+    })?;
+    Ok(exit::OK)
+}
+
+fn run_sweep(s: SweepArgs) -> Result<u8> {
+    let mut cfg = s.config()?;
+    let slots = s.output.check(&s.audit.inputs(&s.log))?;
+    cfg.audit.critic = s.audit.fit_critic(&s.log, cfg.audit.gamma)?;
+    let report = sweep::run(s.log.open()?, &cfg)?;
+    let text = match s.output.format {
+        AuditFormat::Table => report::sweep::render_table(&report),
+        AuditFormat::Json => report::sweep::render_json(&report),
+        AuditFormat::Csv => report::sweep::render_csv(&report),
+        AuditFormat::Markdown => report::sweep::render_markdown(&report),
+    };
+    slots.write(text, || report::svg::sweep_plot(&report))?;
+    Ok(exit::OK)
+}
+
+fn run_gate(g: GateArgs) -> Result<u8> {
+    let mut cfg = g.audit.config(&g.log)?;
+    // The baseline may be replaced (a rolling baseline); the log, policy and rules may not.
+    let mut inputs = g.audit.inputs(&g.log);
+    inputs.extend(g.rules.as_deref());
+    let mut outputs = output::Outputs::new(&inputs);
+    let out = outputs.add("--out", &g.out)?;
+    let junit = g
+        .junit
+        .as_deref()
+        .map(|j| outputs.add("--junit", j))
+        .transpose()?;
+    output::test_pause("checked");
+    let rules = g.rule_set()?;
+    let baseline = g.baseline.as_deref().map(Baseline::load).transpose()?;
+    gate::include_named(&mut cfg, &rules);
+    cfg.critic = g.audit.fit_critic(&g.log, cfg.gamma)?;
+    let result = gate::run(audit::run(g.log.open()?, &cfg)?, &rules, baseline.as_ref())?;
+    let text = match g.format {
+        GateFormat::Text => report::gate::render_text(&result),
+        GateFormat::Markdown => report::gate::render_markdown(&result),
+        GateFormat::Json => report::gate::render_json(&result),
+    };
+    let mut texts = vec![(out, text)];
+    if let Some(j) = junit {
+        texts.push((j, report::gate::render_junit(&result)));
+    }
+    outputs.write(texts)?;
+    Ok(if result.passed {
+        exit::OK
+    } else {
+        exit::CHECK_FAILED
+    })
 }

@@ -6,6 +6,10 @@ use std::process::ExitCode;
 
 fn main() -> ExitCode {
     let cli = Cli::parse();
+    // Before any output is staged: a signal then removes the temporary files it leaves.
+    if let Err(e) = gradaudit::output::install_signal_cleanup() {
+        eprintln!("gradaudit: warning: {e}; an interrupted run may leave a temporary file");
+    }
     match cli::run(cli) {
         Ok(code) => ExitCode::from(code),
         Err(e) => {
