@@ -324,3 +324,49 @@ fn compare(
         detail,
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn line_column_counts_from_one() {
+        let text = "{\n  \"a\": 1,\n  \"b\": 2\n}";
+        assert_eq!(line_column(text, 0), (1, 1));
+        assert_eq!(line_column(text, text.find("\"b\"").unwrap()), (3, 3));
+    }
+
+    #[test]
+    fn json_errors_give_the_position_once() {
+        let e = Baseline::from_json(
+            "{\n  \"tool\": {\"schema\": \"gradaudit.audit/1\"},\n  \"input\": 7\n}",
+            "b.json",
+        )
+        .unwrap_err()
+        .to_string();
+        assert!(e.starts_with("b.json, line 3, column "), "{e}");
+        assert!(
+            !e.contains(" at line "),
+            "the position is not repeated: {e}"
+        );
+    }
+
+    #[test]
+    fn missing_and_unknown_schemas_are_refused() {
+        for (text, wanted) in [
+            ("{}", "no tool.schema"),
+            ("{\"tool\": {\"schema\": 1}}", "no tool.schema"),
+            (
+                "{\"tool\": {\"schema\": \"gradaudit.audit/2\"}}",
+                "'gradaudit.audit/2'",
+            ),
+            (
+                "{\"tool\": {\"schema\": \"gradaudit.gate/1\"}, \"audit\": {\"tool\": {\"schema\": \"x\"}}}",
+                "'x'",
+            ),
+        ] {
+            let e = Baseline::from_json(text, "b.json").unwrap_err().to_string();
+            assert!(e.contains(wanted), "{text}: {e}");
+        }
+    }
+}
