@@ -5,8 +5,8 @@
 //!   folder, a device, FIFO or socket, a missing folder, a symbolic link to nothing, a path that
 //!   is one of the inputs (same device and inode) or another output all fail at once.
 //! - A symbolic link is written through: its target file is replaced and the link stays.
-//! - Only regular files are replaced. An existing file keeps its permission bits; a new file gets
-//!   the usual `0666 & !umask`.
+//! - Only regular files are replaced. An existing file keeps its permission bits (and its owner,
+//!   where the process may set it); a new file gets the usual `0666 & !umask`.
 //! - All or none ([`Outputs::write`]): every output is first written and synced to a temporary
 //!   file beside its target, and only when all of them are complete are they renamed into place.
 //!   A failure before the renames removes every temporary file and leaves existing files as they
@@ -68,13 +68,20 @@ enum Dest {
     File {
         /// The file that is replaced: the given path, or a symbolic link's final target.
         path: PathBuf,
-        /// The permission bits of the file there now; None when there is none yet.
-        keep: Option<Permissions>,
+        /// The mode and owner of the file there now; None when there is none yet.
+        keep: Option<Kept>,
         /// The canonical path (existing folder + file name): two outputs may not share it.
         key: PathBuf,
         /// Device and inode of an existing file, compared with the inputs'.
         id: Option<(u64, u64)>,
     },
+}
+
+/// What a replaced file keeps: its permission bits and, where the process may set it, its owner.
+#[derive(Debug, Clone)]
+struct Kept {
+    mode: Permissions,
+    owner: (u32, u32),
 }
 
 /// A handle to one output of an [`Outputs`] set.
@@ -230,7 +237,10 @@ fn check(option: &str, path: &str) -> Result<Dest> {
     probe_folder(option, path, &file)?;
     Ok(Dest::File {
         key: std::fs::canonicalize(&file).map_err(|e| Error::io(path, e))?,
-        keep: Some(meta.permissions()),
+        keep: Some(Kept {
+            mode: meta.permissions(),
+            owner: (meta.uid(), meta.gid()),
+        }),
         id: Some(id(&meta)),
         path: file,
     })
@@ -310,7 +320,7 @@ impl Drop for Staged<'_> {
 fn stage<'a>(
     target: &'a Target,
     path: &Path,
-    keep: Option<&Permissions>,
+    keep: Option<&Kept>,
     text: &str,
 ) -> Result<Staged<'a>> {
     let mut builder = tempfile::Builder::new();
@@ -338,7 +348,12 @@ fn stage<'a>(
         .write_all(text.as_bytes())
         .and_then(|_| match keep {
             // Set after the write so the file is never more open than the one it replaces.
-            Some(p) => file.set_permissions(p.clone()),
+            Some(k) => {
+                // Only root may give a file away; others get the file as their own, as with
+                // any editor that saves through a rename. chown comes first: it clears set-id bits.
+                let _ = std::os::unix::fs::fchown(file, Some(k.owner.0), Some(k.owner.1));
+                file.set_permissions(k.mode.clone())
+            }
             None => Ok(()),
         })
         .and_then(|_| file.sync_all())

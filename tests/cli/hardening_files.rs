@@ -158,6 +158,23 @@ fn existing_report_keeps_its_mode() {
 }
 
 #[test]
+fn existing_report_keeps_its_owner_when_run_as_root() {
+    use std::os::unix::fs::MetadataExt;
+    let dir = Dir::new("owner");
+    let report = dir.write("report.txt", b"old\n");
+    if std::fs::metadata(&report).unwrap().uid() != 0 {
+        eprintln!("not root: only root may give a file to another owner");
+        return;
+    }
+    std::os::unix::fs::chown(&report, Some(4321), Some(4322)).unwrap();
+    let (code, _, err) = audit_to(&report, &[]);
+    assert_eq!(code, 0, "{err}");
+    let meta = std::fs::metadata(&report).unwrap();
+    assert_eq!((meta.uid(), meta.gid()), (4321, 4322));
+    assert!(std::fs::read_to_string(&report).unwrap().contains("rtg"));
+}
+
+#[test]
 fn new_report_gets_the_umask_mode() {
     let dir = Dir::new("umask");
     let bin = assert_cmd::cargo::cargo_bin("gradaudit");
