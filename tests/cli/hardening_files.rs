@@ -63,7 +63,7 @@ fn out_onto_a_symlink_does_not_replace_the_link() {
 }
 
 #[test]
-fn out_onto_a_device_or_a_dangling_link_is_refused() {
+fn out_onto_a_device_fifo_or_dangling_link_is_refused() {
     let (code, _, err) = audit_to("/dev/null", &[]);
     assert_eq!(code, 2, "{err}");
     assert!(err.contains("--out /dev/null: is a device"), "{err}");
@@ -71,6 +71,24 @@ fn out_onto_a_device_or_a_dangling_link_is_refused() {
     assert!(meta.file_type().is_char_device(), "/dev/null is left alone");
 
     let dir = Dir::new("dangling");
+    let fifo = dir.path("pipe");
+    assert!(
+        Command::new("mkfifo")
+            .arg(&fifo)
+            .status()
+            .unwrap()
+            .success()
+    );
+    let (code, _, err) = audit_to(fifo.to_str().unwrap(), &[]);
+    assert_eq!(code, 2, "{err}");
+    assert!(err.contains("is a FIFO"), "{err}");
+    assert!(
+        std::fs::symlink_metadata(&fifo)
+            .unwrap()
+            .file_type()
+            .is_fifo()
+    );
+
     let link = dir.path("gone.txt");
     std::os::unix::fs::symlink("missing.txt", &link).unwrap();
     let (code, _, err) = audit_to(link.to_str().unwrap(), &[]);
