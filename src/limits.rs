@@ -85,10 +85,11 @@ impl Budget {
         if need <= u128::from(self.bytes) {
             return Ok(());
         }
-        let mb = need >> 20;
+        // Rounded up, so that a need just over the budget never reads as equal to it.
+        let mb = need.div_ceil(1 << 20);
         let shown = if mb > u128::from(u64::MAX >> 20) {
             "more than 16 million terabytes".to_string()
-        } else if mb == 0 {
+        } else if need < 1 << 20 {
             format!("{need} bytes")
         } else {
             format!("about {mb} MB")
@@ -133,5 +134,13 @@ mod tests {
             .unwrap_err()
             .to_string();
         assert!(e.contains("about 11 MB"), "{e}");
+        let e = b
+            .check((10 << 20) + 1, || "r".into(), "f")
+            .unwrap_err()
+            .to_string();
+        assert!(
+            e.contains("about 11 MB") && e.contains("budget of 10 MB"),
+            "{e}"
+        );
     }
 }
