@@ -202,3 +202,44 @@ pub fn run(
         warnings: reader.warnings().clone(),
     })
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    // The histogram summary against the plain one on the expanded data (same definitions:
+    // sample sd with n - 1, type-7 median), for an odd and an even count.
+    #[test]
+    fn length_histogram_summary_equals_the_summary_of_the_expanded_lengths() {
+        for counts in [vec![(3, 2), (5, 1), (10, 3)], vec![(1, 1), (4, 2), (60, 4)]] {
+            let map: BTreeMap<u64, u64> = counts.iter().copied().collect();
+            let expanded: Vec<f64> = counts
+                .iter()
+                .flat_map(|&(v, c)| std::iter::repeat_n(v as f64, c as usize))
+                .collect();
+            let (h, plain) = (
+                Summary::of_counts(&map).unwrap(),
+                Summary::of(&expanded).unwrap(),
+            );
+            assert_eq!(
+                (h.mean, h.min, h.median, h.max),
+                (plain.mean, plain.min, plain.median, plain.max)
+            );
+            assert!((h.sd.unwrap() - plain.sd.unwrap()).abs() < 1e-13);
+        }
+        // One episode: no sd; none: no summary.
+        let one: BTreeMap<u64, u64> = [(7, 1)].into_iter().collect();
+        assert_eq!(Summary::of_counts(&one).unwrap().sd, None);
+        assert_eq!(Summary::of_counts(&BTreeMap::new()), None);
+    }
+
+    // Sums over sorted values: the same multiset in any order gives the same bits.
+    #[test]
+    fn return_summary_does_not_depend_on_arrival_order() {
+        let xs = [0.1, 1e16, -3.7, 2.2e-9, -1e16, 5.0, 0.3];
+        let mut ys = xs;
+        ys.reverse();
+        ys.swap(1, 4);
+        assert_eq!(Summary::of(&xs), Summary::of(&ys));
+    }
+}
