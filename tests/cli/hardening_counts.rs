@@ -61,15 +61,19 @@ fn huge_resample_count_is_refused_before_allocating() {
 #[test]
 fn huge_fold_count_is_refused_before_allocating() {
     let rover = demo("docking_rover.csv");
-    for command in ["audit", "inspect"] {
+    // (--folds is an option of audit, sweep and gate; inspect --fit-value uses 5.)
+    for command in ["audit", "sweep", "gate"] {
         let mut args = vec![command, rover.as_str(), "--fit-value"];
-        if command == "audit" {
-            args.extend(["--folds", "18446744073709551615"]);
-            refused(
-                &args,
-                &["18446744073709551615 folds", "--folds", "--max-memory"],
-            );
+        args.extend(["--folds", "18446744073709551615"]);
+        match command {
+            "sweep" => args.extend(["--over", "lambda"]),
+            "gate" => args.extend(["--require", "rtg:snr>=0"]),
+            _ => {}
         }
+        refused(
+            &args,
+            &["18446744073709551615 folds", "--folds", "--max-memory"],
+        );
     }
     refused(
         &[
