@@ -94,6 +94,19 @@ impl AuditConfig {
         if self.resamples < 2 {
             return Err(Error::usage("--resamples must be at least 2"));
         }
+        // A first bound before the log is opened: every resampled row holds at least one
+        // number (the exact check, with the row width, follows once the header is read).
+        let rows = self.resamples as u128 + 2 * self.splits as u128;
+        self.budget.check(
+            crate::limits::bytes(rows, 8),
+            || {
+                format!(
+                    "--resamples {} and --splits {} ({rows} resampled rows)",
+                    self.resamples, self.splits
+                )
+            },
+            "use fewer --resamples or --splits, or raise --max-memory",
+        )?;
         if !(self.confidence > 0.0 && self.confidence < 1.0) {
             return Err(Error::usage(
                 "--confidence must lie strictly between 0 and 1",
@@ -158,15 +171,69 @@ pub fn select(
     Ok((chosen, skipped))
 }
 
-/// Orders episode ids canonically: integer ids first, by value, then all others as text.
-/// (Comparing "numerically when both are integers, else as text" is not a total order for
-/// mixed ids: 9 < 10 < "1a" < 9. A sort needs a total order, and would panic without one.)
-fn id_order(a: &str, b: &str) -> Ordering {
-    match (a.parse::<i64>(), b.parse::<i64>()) {
-        (Ok(x), Ok(y)) => x.cmp(&y),
-        (Ok(_), Err(_)) => Ordering::Less,
-        (Err(_), Ok(_)) => Ordering::Greater,
-        (Err(_), Err(_)) => a.cmp(b),
+/// Orders episode ids canonically: integer ids first, by value, then all others; ties (the
+/// integers `1` and `01`) and all other ids by their raw bytes. A total order on the raw
+/// bytes, so any row order of the same episodes sorts them the same way. (Comparing
+/// "numerically when both are integers, else as text" is not a total order for mixed ids:
+/// 9 < 10 < "1a" < 9. A sort needs a total order, and would panic without one.)
+#[cfg(test)]
+fn id_order(a: &[u8], b: &[u8]) -> Ordering {
+    id_order_parsed((parse_id(a), a), (parse_id(b), b))
+}
+
+/// The integer value of an id, when it is one.
+fn parse_id(id: &[u8]) -> Option<i64> {
+    std::str::from_utf8(id).ok()?.parse().ok()
+}
+
+fn id_order_parsed(a: (Option<i64>, &[u8]), b: (Option<i64>, &[u8])) -> Ordering {
+    match (a.0, b.0) {
+        (Some(x), Some(y)) => x.cmp(&y).then_with(|| a.1.cmp(b.1)),
+        (Some(_), None) => Ordering::Less,
+        (None, Some(_)) => Ordering::Greater,
+        (None, None) => a.1.cmp(b.1),
+    }
+}
+
+/// The raw ids of the collected episodes, packed in one buffer (no allocation per episode),
+/// with their integer values parsed once for sorting.
+#[derive(Default)]
+struct Ids {
+    bytes: Vec<u8>,
+    ends: Vec<usize>,
+    numbers: Vec<Option<i64>>,
+}
+
+impl Ids {
+    /// Bytes held per episode besides the id's own bytes: its end offset, its parsed value,
+    /// and during sorting its index and a visited flag.
+    const PER_EPISODE: u128 = 8 + 16 + 8 + 1;
+
+    fn push(&mut self, key: &[u8]) {
+        self.bytes.extend_from_slice(key);
+        self.ends.push(self.bytes.len());
+        self.numbers.push(parse_id(key));
+    }
+
+    fn len(&self) -> usize {
+        self.ends.len()
+    }
+
+    fn get(&self, i: usize) -> &[u8] {
+        let start = if i == 0 { 0 } else { self.ends[i - 1] };
+        &self.bytes[start..self.ends[i]]
+    }
+
+    /// Indices in canonical order (see [`id_order`]).
+    fn order(&self) -> Vec<usize> {
+        let mut order: Vec<usize> = (0..self.len()).collect();
+        order.sort_unstable_by(|&a, &b| {
+            id_order_parsed(
+                (self.numbers[a], self.get(a)),
+                (self.numbers[b], self.get(b)),
+            )
+        });
+        order
     }
 }
 
@@ -217,8 +284,36 @@ pub struct Collected {
     pub warnings: crate::warnings::Warnings,
 }
 
+/// Bytes of one resampled row (a replicate or a half split): the mean row, and its
+/// per-estimator gradients and norms in the statistics.
+fn resampled_row_bytes(plan: &Plan) -> u128 {
+    let per_estimator = (plan.estimators.len() as u128 + 1) * plan.d as u128;
+    8 * (plan.width() as u128 + per_estimator + 8)
+}
+
+/// Refuses --resamples and --splits whose rows exceed the budget, before reading or
+/// allocating anything; returns the bytes they will hold.
+fn check_resampled(plan: &Plan, cfg: &AuditConfig) -> Result<u128> {
+    let rows = cfg.resamples as u128 + 2 * cfg.splits as u128;
+    let need = crate::limits::bytes(rows, resampled_row_bytes(plan));
+    cfg.budget.check(
+        need,
+        || {
+            format!(
+                "--resamples {} and --splits {} ({rows} resampled rows of {} summary columns)",
+                cfg.resamples,
+                cfg.splits,
+                plan.width()
+            )
+        },
+        "use fewer --resamples or --splits, audit fewer estimators, or raise --max-memory",
+    )?;
+    Ok(need)
+}
+
 /// Reads every episode, reducing each to its contribution row under `plan`. Fails with fewer
-/// than 2 episodes.
+/// than 2 episodes, and as soon as the rows (with the resampled rows to come) would exceed the
+/// memory budget.
 pub fn collect(
     mut reader: LogReader,
     plan: &Plan,
@@ -226,50 +321,54 @@ pub fn collect(
     scores: &Scores,
 ) -> Result<Collected> {
     let width = plan.width();
-    // Rows held after reading: contributions (N), replicates (B) and half splits (2S).
-    let fixed = (cfg.resamples + 2 * cfg.splits) as u64 * width as u64 * 8;
-    let mut ids: Vec<String> = Vec::new();
+    let fixed = check_resampled(plan, cfg)?;
+    // Per episode: its contribution row, its id, and its share of the resampling scratch.
+    let per_episode = 8 * width as u128 + Ids::PER_EPISODE + crate::resample::scratch_bytes(1);
+    let mut ids = Ids::default();
     let mut flat: Vec<f64> = Vec::new();
     let mut work = Work::default();
     let mut input = InputSummary::default();
-    // Per-episode critic sums, combined later in canonical order so that the figures do not
-    // depend on the order in which episodes end.
-    let mut quality: Vec<[crate::critic::ExplainedVariance; 2]> = Vec::new();
+    // Exact sums (critic/exact.rs): the figures do not depend on the order episodes end in.
+    let (mut recorded, mut fitted) = (
+        crate::critic::ExplainedVariance::default(),
+        crate::critic::ExplainedVariance::default(),
+    );
     let mut buf = Vec::new();
     while let Some(mut ep) = reader.next_episode()? {
         if let Some(policy) = &scores.policy {
             let first = ep.first_line;
             policy.score_episode(&mut ep, reader.file(), first)?;
         }
-        let mut q = [crate::critic::ExplainedVariance::default(); 2];
-        q[0].push_episode(&ep, plan.gamma, &mut buf);
+        recorded.push_episode(&ep, plan.gamma, &mut buf);
         if let Some(critic) = &cfg.critic {
             critic.apply(&mut ep);
-            q[1].push_episode(&ep, plan.gamma, &mut buf);
+            fitted.push_episode(&ep, plan.gamma, &mut buf);
         }
-        quality.push(q);
         input.episodes += 1;
         input.steps += ep.len() as u64;
         match ep.end {
             End::Terminated => input.terminated += 1,
             End::Truncated { .. } => input.truncated += 1,
         }
-        let need = fixed + (ids.len() as u64 + 1) * width as u64 * 8;
-        if need > cfg.budget.bytes {
-            return Err(Error::usage(format!(
-                "{}: {} episodes x {width} summary columns (plus {} resampled rows) would exceed \
-                 the memory budget of {} MB; audit fewer estimators, use fewer --resamples, or \
-                 raise --max-memory",
-                reader.file(),
-                ids.len() + 1,
-                cfg.resamples + 2 * cfg.splits,
-                cfg.budget.mb()
-            )));
-        }
+        let n = ids.len() as u128 + 1;
+        let need = fixed
+            .saturating_add(n.saturating_mul(per_episode))
+            .saturating_add((ids.bytes.len() + ep.key.len()) as u128);
+        cfg.budget.check(
+            need,
+            || {
+                format!(
+                    "{}: {n} episodes x {width} summary columns (plus {} resampled rows)",
+                    reader.file(),
+                    cfg.resamples as u128 + 2 * cfg.splits as u128
+                )
+            },
+            "audit fewer estimators, use fewer --resamples, or raise --max-memory",
+        )?;
         let start = flat.len();
         flat.resize(start + width, 0.0);
         plan.contribute(&ep, &mut work, &mut flat[start..]);
-        ids.push(ep.id);
+        ids.push(&ep.key);
     }
     input.file = reader.file().to_string();
     input.rows = reader.rows();
@@ -281,16 +380,6 @@ pub fn collect(
         "columns"
     }
     .to_string();
-    let mut order: Vec<usize> = (0..ids.len()).collect();
-    order.sort_by(|&a, &b| id_order(&ids[a], &ids[b]));
-    let (mut recorded, mut fitted) = (
-        crate::critic::ExplainedVariance::default(),
-        crate::critic::ExplainedVariance::default(),
-    );
-    for &i in &order {
-        recorded.merge(&quality[i][0]);
-        fitted.merge(&quality[i][1]);
-    }
     input.critic = crate::critic::CriticQuality {
         recorded_explained_variance: reader
             .schema()
@@ -309,6 +398,8 @@ pub fn collect(
         )));
     }
     // Canonical order, so the same episodes in another row order give identical numbers.
+    let order = ids.order();
+    drop(ids);
     permute_rows(&mut flat, width, &order);
     let contrib = Array2::from_shape_vec((n, width), flat).expect("n x width values");
     Ok(Collected {

@@ -349,14 +349,15 @@ impl LogArgs {
             } else {
                 Progress::Auto
             },
-            budget: self.budget(),
+            budget: self.budget()?,
         })
     }
 
-    pub fn budget(&self) -> crate::limits::Budget {
+    /// The memory budget: --max-memory (at most the machine's memory), else the default.
+    pub fn budget(&self) -> Result<crate::limits::Budget> {
         self.max_memory.map_or_else(
-            crate::limits::Budget::default,
-            crate::limits::Budget::from_mb,
+            || Ok(crate::limits::Budget::default()),
+            crate::limits::Budget::from_option,
         )
     }
 
@@ -476,6 +477,7 @@ impl AuditOptions {
             ridge: self.ridge,
             gamma,
             in_sample: false,
+            budget: log.budget()?,
         };
         log.fit_critic(&fit).map(Some)
     }
@@ -506,7 +508,7 @@ impl AuditOptions {
                 ScoresFromArg::Columns => crate::audit::ScoresFrom::Columns,
             }),
             sketch: self.score_sketch,
-            budget: log.budget(),
+            budget: log.budget()?,
             ..AuditConfig::default()
         };
         cfg.validate()?;
@@ -538,13 +540,14 @@ pub fn run(cli: Cli) -> Result<u8> {
             let critic = if a.fit_value {
                 let fit = crate::critic::FitConfig {
                     gamma: a.gamma,
+                    budget: a.log.budget()?,
                     ..Default::default()
                 };
                 Some(a.log.fit_critic(&fit)?)
             } else {
                 None
             };
-            let report = inspect::run(a.log.open()?, a.gamma, critic.as_ref())?;
+            let report = inspect::run(a.log.open()?, a.gamma, critic.as_ref(), a.log.budget()?)?;
             let text = match a.format {
                 InspectFormat::Table => report::inspect::render_text(&report),
                 InspectFormat::Json => report::inspect::render_json(&report),

@@ -19,8 +19,11 @@ use crate::episode::{End, Episode};
 use crate::error::{Error, Result};
 use crate::estimator::scan;
 use crate::log::LogReader;
+use exact::ExactSum;
 use nalgebra::{DMatrix, DVector};
 use serde::Serialize;
+
+pub mod exact;
 
 /// How to fit.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -31,6 +34,8 @@ pub struct FitConfig {
     pub gamma: f64,
     /// Fit on all episodes and apply to the same ones (biased; for comparison only).
     pub in_sample: bool,
+    /// What the per-fold sums and the solves may hold.
+    pub budget: crate::limits::Budget,
 }
 
 impl Default for FitConfig {
@@ -40,6 +45,7 @@ impl Default for FitConfig {
             ridge: 1e-3,
             gamma: 0.99,
             in_sample: false,
+            budget: crate::limits::Budget::default(),
         }
     }
 }
@@ -64,59 +70,75 @@ pub struct CriticQuality {
     pub fitted_features: Option<usize>,
 }
 
-/// Accumulates 1 - Var(G - V) / Var(G) over steps.
-#[derive(Debug, Clone, Copy, Default)]
+/// Accumulates 1 - Var(G - V) / Var(G) over steps. The sums are exact (see [`exact`]), so
+/// the figure does not depend on the order in which episodes end.
+#[derive(Debug, Clone, Default)]
 pub struct ExplainedVariance {
-    n: f64,
-    g: f64,
-    g2: f64,
-    e: f64,
-    e2: f64,
+    n: u64,
+    g: ExactSum,
+    g2: ExactSum,
+    e: ExactSum,
+    e2: ExactSum,
 }
 
 impl ExplainedVariance {
     pub fn push(&mut self, g: f64, v: f64) {
         let e = g - v;
-        self.n += 1.0;
-        self.g += g;
-        self.g2 += g * g;
-        self.e += e;
-        self.e2 += e * e;
+        self.n += 1;
+        self.g.add(g);
+        self.g2.add(g * g);
+        self.e.add(e);
+        self.e2.add(e * e);
     }
 
-    /// Adds another accumulator's sums (for combining per-episode sums in a fixed order).
+    /// Adds another accumulator's sums.
     pub fn merge(&mut self, other: &ExplainedVariance) {
         self.n += other.n;
-        self.g += other.g;
-        self.g2 += other.g2;
-        self.e += other.e;
-        self.e2 += other.e2;
+        self.g.merge(&other.g);
+        self.g2.merge(&other.g2);
+        self.e.merge(&other.e);
+        self.e2.merge(&other.e2);
     }
 
     pub fn value(&self) -> Option<f64> {
-        if self.n < 2.0 {
+        if self.n < 2 {
             return None;
         }
-        let var_g = self.g2 / self.n - (self.g / self.n).powi(2);
-        let var_e = self.e2 / self.n - (self.e / self.n).powi(2);
+        let n = self.n as f64;
+        let var_g = self.g2.value() / n - (self.g.value() / n).powi(2);
+        let var_e = self.e2.value() / n - (self.e.value() / n).powi(2);
         (var_g > 0.0).then(|| 1.0 - var_e / var_g)
     }
 
-    /// Adds an episode's steps with its recorded (or fitted) values.
+    /// Adds an episode's steps with its recorded (or fitted) values: plain sums over its steps
+    /// (which come in a fixed order), then one exact addition of each.
     pub fn push_episode(&mut self, ep: &Episode, gamma: f64, buf: &mut Vec<f64>) {
         if let Some(values) = &ep.values {
             scan::discounted_returns(&ep.rewards, gamma, buf);
+            let mut s = [0.0; 4];
             for (g, v) in buf.iter().zip(values) {
-                self.push(*g, *v);
+                let e = g - v;
+                s[0] += g;
+                s[1] += g * g;
+                s[2] += e;
+                s[3] += e * e;
+            }
+            self.n += buf.len().min(values.len()) as u64;
+            for (acc, x) in [&mut self.g, &mut self.g2, &mut self.e, &mut self.e2]
+                .into_iter()
+                .zip(s)
+            {
+                acc.add(x);
             }
         }
     }
 }
 
-/// Fold of an episode: FNV-1a of its id, so assignment ignores row order and thread count.
-fn fold_of(id: &str, folds: usize) -> usize {
+/// Fold of an episode: FNV-1a of its id's raw bytes, so assignment ignores row order and
+/// thread count.
+fn fold_of(id: &[u8], folds: usize) -> usize {
     let mut h: u64 = 0xcbf29ce484222325;
-    for b in id.bytes() {
+    for &b in id {
         h ^= u64::from(b);
         h = h.wrapping_mul(0x100000001b3);
     }
@@ -133,6 +155,48 @@ fn features(ep: &Episode, t: usize, out: &mut Vec<f64>) {
     out.push((t as f64) * (t as f64));
 }
 
+/// Per-fold sums of X^T X (upper triangle, row-major) and X^T y, kept exactly so that the fit
+/// does not depend on the order in which episodes end.
+#[derive(Debug, Clone, Default)]
+struct FoldSums {
+    xtx: Vec<ExactSum>,
+    xty: Vec<ExactSum>,
+}
+
+impl FoldSums {
+    fn new(p: usize) -> FoldSums {
+        FoldSums {
+            xtx: vec![ExactSum::default(); p * (p + 1) / 2],
+            xty: vec![ExactSum::default(); p],
+        }
+    }
+
+    fn for_each(&mut self, other: &FoldSums, f: fn(&mut ExactSum, &ExactSum)) {
+        for (a, b) in self.xtx.iter_mut().zip(&other.xtx) {
+            f(a, b);
+        }
+        for (a, b) in self.xty.iter_mut().zip(&other.xty) {
+            f(a, b);
+        }
+    }
+}
+
+/// Refuses fold counts and feature counts whose sums and solves exceed the budget, before
+/// allocating them (a count like 2^64 - 1 would otherwise overflow a capacity).
+fn check_size(folds: usize, p: usize, budget: crate::limits::Budget) -> Result<()> {
+    use crate::limits::bytes;
+    let entries = bytes(p as u128, p as u128 + 1) / 2 + p as u128;
+    // The fold sums, their total, one complement, the fitted weights and three p x p matrices.
+    let per_fold = bytes(entries, exact::TYPICAL_BYTES).saturating_add(8 * p as u128);
+    let need =
+        bytes(folds as u128 + 2, per_fold).saturating_add(bytes(24, bytes(p as u128, p as u128)));
+    budget.check(
+        need,
+        || format!("--fit-value with {folds} folds and {p} features (2 x obs columns + 3)"),
+        "use fewer --folds (5 is usual) or fewer obs columns, or raise --max-memory",
+    )
+}
+
 /// First pass: fits the fold models on a log, keeping only per-fold sums.
 pub fn fit(mut reader: LogReader, cfg: &FitConfig) -> Result<Critic> {
     if cfg.folds < 2 && !cfg.in_sample {
@@ -141,59 +205,49 @@ pub fn fit(mut reader: LogReader, cfg: &FitConfig) -> Result<Critic> {
     let obs_dim = reader.schema().obs.len();
     let p = 2 * obs_dim + 3;
     let folds = cfg.folds.max(1);
-    let mut xtx = vec![DMatrix::<f64>::zeros(p, p); folds];
-    let mut xty = vec![DVector::<f64>::zeros(p); folds];
+    check_size(folds, p, cfg.budget)?;
+    let mut sums = vec![FoldSums::new(p); folds];
     let (mut g, mut phi) = (Vec::new(), Vec::new());
+    let (mut xtx, mut xty) = (vec![0.0; p * (p + 1) / 2], vec![0.0; p]);
     while let Some(ep) = reader.next_episode()? {
-        let f = fold_of(&ep.id, folds);
         scan::discounted_returns(&ep.rewards, cfg.gamma, &mut g);
+        // The episode's own sums in step order, then one exact addition per entry.
+        xtx.fill(0.0);
+        xty.fill(0.0);
         for (t, gt) in g.iter().enumerate() {
             features(&ep, t, &mut phi);
-            let x = DVector::from_column_slice(&phi);
-            xtx[f] += &x * x.transpose();
-            xty[f] += &x * *gt;
-        }
-    }
-    let solve = |skip: Option<usize>| -> Result<Vec<f64>> {
-        let mut a = DMatrix::<f64>::zeros(p, p);
-        let mut b = DVector::<f64>::zeros(p);
-        for k in 0..folds {
-            if Some(k) != skip {
-                a += &xtx[k];
-                b += &xty[k];
+            let mut k = 0;
+            for i in 0..p {
+                for j in i..p {
+                    xtx[k] += phi[i] * phi[j];
+                    k += 1;
+                }
+                xty[i] += phi[i] * gt;
             }
         }
-        // Standardise: u = D^-1 w with D_ii = 1 / sqrt(A_ii), solve (D A D + ridge I) u = D b.
-        let d: Vec<f64> = (0..p)
-            .map(|i| {
-                if a[(i, i)] > 0.0 {
-                    1.0 / a[(i, i)].sqrt()
-                } else {
-                    1.0
-                }
-            })
-            .collect();
-        let mut s = DMatrix::from_fn(p, p, |i, j| a[(i, j)] * d[i] * d[j]);
-        for i in 0..p {
-            s[(i, i)] += cfg.ridge;
+        let f = &mut sums[fold_of(&ep.key, folds)];
+        for (acc, x) in f.xtx.iter_mut().zip(&xtx) {
+            acc.add(*x);
         }
-        let rhs = DVector::from_fn(p, |i, _| b[i] * d[i]);
-        let chol = s.cholesky().ok_or_else(|| {
-            Error::usage(
-                "the value fit is singular (too few steps in the other folds); use fewer --folds",
-            )
-        })?;
-        Ok(chol
-            .solve(&rhs)
-            .iter()
-            .zip(&d)
-            .map(|(u, di)| u * di)
-            .collect())
-    };
+        for (acc, x) in f.xty.iter_mut().zip(&xty) {
+            acc.add(*x);
+        }
+    }
+    let mut total = FoldSums::new(p);
+    for f in &sums {
+        total.for_each(f, ExactSum::merge);
+    }
     let weights = if cfg.in_sample {
-        vec![solve(None)?]
+        vec![solve(&total, p, cfg.ridge)?]
     } else {
-        (0..folds).map(|k| solve(Some(k))).collect::<Result<_>>()?
+        (0..folds)
+            .map(|k| {
+                // The other folds' sums: the total less fold k, exactly.
+                let mut rest = total.clone();
+                rest.for_each(&sums[k], ExactSum::subtract);
+                solve(&rest, p, cfg.ridge)
+            })
+            .collect::<Result<_>>()?
     };
     Ok(Critic {
         weights,
@@ -201,6 +255,47 @@ pub fn fit(mut reader: LogReader, cfg: &FitConfig) -> Result<Critic> {
         in_sample: cfg.in_sample,
         obs_dim,
     })
+}
+
+/// Ridge weights from summed normal equations.
+fn solve(sums: &FoldSums, p: usize, ridge: f64) -> Result<Vec<f64>> {
+    let mut a = DMatrix::<f64>::zeros(p, p);
+    let mut k = 0;
+    for i in 0..p {
+        for j in i..p {
+            let x = sums.xtx[k].value();
+            a[(i, j)] = x;
+            a[(j, i)] = x;
+            k += 1;
+        }
+    }
+    let b = DVector::from_fn(p, |i, _| sums.xty[i].value());
+    // Standardise: u = D^-1 w with D_ii = 1 / sqrt(A_ii), solve (D A D + ridge I) u = D b.
+    let d: Vec<f64> = (0..p)
+        .map(|i| {
+            if a[(i, i)] > 0.0 {
+                1.0 / a[(i, i)].sqrt()
+            } else {
+                1.0
+            }
+        })
+        .collect();
+    let mut s = DMatrix::from_fn(p, p, |i, j| a[(i, j)] * d[i] * d[j]);
+    for i in 0..p {
+        s[(i, i)] += ridge;
+    }
+    let rhs = DVector::from_fn(p, |i, _| b[i] * d[i]);
+    let chol = s.cholesky().ok_or_else(|| {
+        Error::usage(
+            "the value fit is singular (too few steps in the other folds); use fewer --folds",
+        )
+    })?;
+    Ok(chol
+        .solve(&rhs)
+        .iter()
+        .zip(&d)
+        .map(|(u, di)| u * di)
+        .collect())
 }
 
 impl Critic {
@@ -218,7 +313,7 @@ impl Critic {
         let w = if self.in_sample {
             &self.weights[0]
         } else {
-            &self.weights[fold_of(&ep.id, self.folds)]
+            &self.weights[fold_of(&ep.key, self.folds)]
         };
         let mut phi = Vec::new();
         let v = |phi: &[f64]| phi.iter().zip(w).map(|(a, b)| a * b).sum::<f64>();

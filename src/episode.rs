@@ -1,4 +1,5 @@
-//! The episode model: one finished trajectory with its per-step arrays and how it ended.
+//! The episode model: one finished trajectory with its per-step arrays and how it ended, and
+//! its id (raw bytes as logged, plus a UTF-8 rendering for messages).
 
 /// How an episode ended, which decides the value after its last step (V_T).
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -13,7 +14,11 @@ pub enum End {
 /// One finished episode. Per-step vectors are stored row-major (`T x dim`).
 #[derive(Debug, Clone, PartialEq)]
 pub struct Episode {
+    /// The id for messages: the log's bytes decoded as UTF-8 (invalid sequences replaced).
     pub id: String,
+    /// The id's bytes exactly as in the log: what identifies, orders and folds the episode
+    /// (two ids may decode to the same `id`, e.g. different invalid UTF-8 bytes).
+    pub key: Vec<u8>,
     /// Line of its first row in the log, for messages.
     pub first_line: u64,
     pub rewards: Vec<f64>,
@@ -32,8 +37,17 @@ pub struct Episode {
 impl Episode {
     /// An empty episode with the given per-step layout.
     pub fn new(id: String, first_line: u64, layout: &Layout) -> Self {
+        let mut ep = Episode::from_raw_id(&[], first_line, layout);
+        ep.key = id.clone().into_bytes();
+        ep.id = id;
+        ep
+    }
+
+    /// An empty episode whose id is the raw bytes `raw` of the log's episode field.
+    pub fn from_raw_id(raw: &[u8], first_line: u64, layout: &Layout) -> Self {
         Episode {
-            id,
+            id: String::from_utf8_lossy(raw).into_owned(),
+            key: raw.to_vec(),
             first_line,
             rewards: Vec::new(),
             values: layout.value.then(Vec::new),

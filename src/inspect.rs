@@ -1,11 +1,20 @@
 //! `inspect`: what a user checks before trusting a log. One pass, per-episode lengths and
 //! returns only.
+//!
+//! Order independence: the summaries are computed after sorting (returns) or from a histogram
+//! in length order (lengths), and the critic sums are exact (critic/exact.rs), so any row
+//! order of the same episodes gives bit-identical figures. Memory: the lengths are a
+//! histogram (at most sqrt(2 x steps) distinct values, since distinct lengths sum to at most
+//! the steps), the returns 8 bytes per episode for the exact median, checked against the
+//! memory budget.
 
 use crate::episode::End;
 use crate::error::Result;
+use crate::limits::Budget;
 use crate::log::{Assignment, LogReader};
 use crate::warnings::Warnings;
 use serde::Serialize;
+use std::collections::BTreeMap;
 
 /// Five-number-style summary of a sample; fields are absent for an empty sample.
 #[derive(Debug, Clone, PartialEq, Serialize)]
@@ -20,21 +29,67 @@ pub struct Summary {
 
 impl Summary {
     pub fn of(values: &[f64]) -> Option<Summary> {
-        if values.is_empty() {
-            return None;
-        }
-        let n = values.len() as f64;
-        let mean = values.iter().sum::<f64>() / n;
-        let sd = (values.len() > 1)
-            .then(|| (values.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / (n - 1.0)).sqrt());
         let mut sorted = values.to_vec();
         sorted.sort_by(f64::total_cmp);
+        Summary::of_sorted(&sorted)
+    }
+
+    /// The summary of sorted data; sums run in sorted order, so the figures depend only on the
+    /// multiset of values, not on the order they arrived in.
+    pub fn of_sorted(sorted: &[f64]) -> Option<Summary> {
+        if sorted.is_empty() {
+            return None;
+        }
+        let n = sorted.len() as f64;
+        let mean = sorted.iter().sum::<f64>() / n;
+        let sd = (sorted.len() > 1)
+            .then(|| (sorted.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / (n - 1.0)).sqrt());
         Some(Summary {
             mean,
             sd,
             min: sorted[0],
-            median: crate::stats::percentile(&sorted, 0.5),
+            median: crate::stats::percentile(sorted, 0.5),
             max: sorted[sorted.len() - 1],
+        })
+    }
+
+    /// The summary of a histogram of whole numbers (value -> count), exactly as [`Summary::of`]
+    /// would give on the expanded data up to the order of its sums (here by value).
+    pub fn of_counts(counts: &BTreeMap<u64, u64>) -> Option<Summary> {
+        let n: u64 = counts.values().sum();
+        if n == 0 {
+            return None;
+        }
+        let total: u128 = counts.iter().map(|(&v, &c)| v as u128 * c as u128).sum();
+        let nf = n as f64;
+        let mean = total as f64 / nf;
+        let sd = (n > 1).then(|| {
+            let ss: f64 = counts
+                .iter()
+                .map(|(&v, &c)| c as f64 * (v as f64 - mean).powi(2))
+                .sum();
+            (ss / (nf - 1.0)).sqrt()
+        });
+        // Type-7 median: the values at ranks floor(h) and floor(h) + 1, h = (n - 1) / 2.
+        let nth = |rank: u64| -> f64 {
+            let mut seen = 0;
+            for (&v, &c) in counts {
+                seen += c;
+                if rank < seen {
+                    return v as f64;
+                }
+            }
+            unreachable!("rank < n")
+        };
+        let h = (n - 1) as f64 * 0.5;
+        let lo = h.floor() as u64;
+        let (a, b) = (nth(lo), nth((lo + 1).min(n - 1)));
+        Some(Summary {
+            mean,
+            sd,
+            min: *counts.keys().next().expect("n > 0") as f64,
+            median: a + (h - lo as f64) * (b - a),
+            max: *counts.keys().next_back().expect("n > 0") as f64,
         })
     }
 }
@@ -66,22 +121,39 @@ pub fn run(
     mut reader: LogReader,
     gamma: f64,
     critic: Option<&crate::critic::Critic>,
+    budget: Budget,
 ) -> Result<InspectReport> {
     let (mut recorded, mut fitted, mut buf) = (
         crate::critic::ExplainedVariance::default(),
         crate::critic::ExplainedVariance::default(),
         Vec::new(),
     );
-    let mut lengths = Vec::new();
+    let mut lengths: BTreeMap<u64, u64> = BTreeMap::new();
     let mut returns = Vec::new();
-    let (mut terminated, mut truncated, mut boot) = (0, 0, 0);
+    let (mut terminated, mut truncated, mut boot, mut steps) = (0, 0, 0, 0u64);
     while let Some(mut ep) = reader.next_episode()? {
         recorded.push_episode(&ep, gamma, &mut buf);
         if let Some(c) = critic {
             c.apply(&mut ep);
             fitted.push_episode(&ep, gamma, &mut buf);
         }
-        lengths.push(ep.len() as f64);
+        *lengths.entry(ep.len() as u64).or_insert(0) += 1;
+        steps += ep.len() as u64;
+        // The returns (for the exact median) and the length histogram (a BTreeMap node of
+        // about 16 bytes per distinct length, plus overhead).
+        let need = crate::limits::bytes(returns.len() as u128 + 1, 8)
+            + crate::limits::bytes(lengths.len() as u128, 64);
+        budget.check(
+            need,
+            || {
+                format!(
+                    "{}: the returns of {} episodes (kept for the exact median)",
+                    reader.file(),
+                    returns.len() + 1
+                )
+            },
+            "raise --max-memory",
+        )?;
         returns.push(ep.total_reward());
         match ep.end {
             End::Terminated => terminated += 1,
@@ -91,6 +163,7 @@ pub fn run(
             }
         }
     }
+    returns.sort_by(f64::total_cmp);
     let schema = reader.schema();
     let columns = schema.assignments();
     let used: Vec<usize> = columns
@@ -104,13 +177,13 @@ pub fn run(
     Ok(InspectReport {
         file: reader.file().to_string(),
         rows: reader.rows(),
-        episodes: lengths.len() as u64,
-        steps: lengths.iter().sum::<f64>() as u64,
+        episodes: returns.len() as u64,
+        steps,
         terminated,
         truncated,
         truncated_with_bootstrap: boot,
-        episode_length: Summary::of(&lengths),
-        episode_return: Summary::of(&returns),
+        episode_length: Summary::of_counts(&lengths),
+        episode_return: Summary::of_sorted(&returns),
         score_dim: schema.scores.len(),
         obs_dim: schema.obs.len(),
         act_dim: schema.act.len(),
@@ -128,4 +201,45 @@ pub fn run(
         },
         warnings: reader.warnings().clone(),
     })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    // The histogram summary against the plain one on the expanded data (same definitions:
+    // sample sd with n - 1, type-7 median), for an odd and an even count.
+    #[test]
+    fn length_histogram_summary_equals_the_summary_of_the_expanded_lengths() {
+        for counts in [vec![(3, 2), (5, 1), (10, 3)], vec![(1, 1), (4, 2), (60, 4)]] {
+            let map: BTreeMap<u64, u64> = counts.iter().copied().collect();
+            let expanded: Vec<f64> = counts
+                .iter()
+                .flat_map(|&(v, c)| std::iter::repeat_n(v as f64, c as usize))
+                .collect();
+            let (h, plain) = (
+                Summary::of_counts(&map).unwrap(),
+                Summary::of(&expanded).unwrap(),
+            );
+            assert_eq!(
+                (h.mean, h.min, h.median, h.max),
+                (plain.mean, plain.min, plain.median, plain.max)
+            );
+            assert!((h.sd.unwrap() - plain.sd.unwrap()).abs() < 1e-13);
+        }
+        // One episode: no sd; none: no summary.
+        let one: BTreeMap<u64, u64> = [(7, 1)].into_iter().collect();
+        assert_eq!(Summary::of_counts(&one).unwrap().sd, None);
+        assert_eq!(Summary::of_counts(&BTreeMap::new()), None);
+    }
+
+    // Sums over sorted values: the same multiset in any order gives the same bits.
+    #[test]
+    fn return_summary_does_not_depend_on_arrival_order() {
+        let xs = [0.1, 1e16, -3.7, 2.2e-9, -1e16, 5.0, 0.3];
+        let mut ys = xs;
+        ys.reverse();
+        ys.swap(1, 4);
+        assert_eq!(Summary::of(&xs), Summary::of(&ys));
+    }
 }

@@ -57,6 +57,14 @@ pub fn half_split(seed: u64, s: u64, first: &mut [f64], second: &mut [f64]) {
     }
 }
 
+/// Bytes that resampling `n` episodes holds besides its output rows: one weight block
+/// (BLOCK x n) per worker thread, and a half split's permutation and two weight vectors. For
+/// memory budgets, checked before [`weighted_means`] allocates them.
+pub fn scratch_bytes(n: usize) -> u128 {
+    let threads = rayon::current_num_threads().max(1) as u128;
+    crate::limits::bytes(threads, 8 * (BLOCK as u128 + 3)).saturating_mul(n as u128)
+}
+
 /// Weighted mean rows: row r of the result is sum_i w_ri c_i / sum_i w_ri, where the weights of
 /// row r are written by `weights(r, &mut buf)`. Rows whose weights sum to zero are left zero.
 pub fn weighted_means<F>(contrib: ArrayView2<f64>, rows: usize, weights: F) -> Array2<f64>

@@ -80,10 +80,15 @@ fn parse_values(spec: &str) -> Result<Vec<String>, String> {
                 "'{spec}': use start:stop:step with stop >= start and step > 0"
             ));
         }
-        let count = ((b - a) / step + 1e-9).floor() as usize + 1;
-        if count > 10_000 {
-            return Err(format!("'{spec}' makes {count} points; at most 10000"));
+        // Checked as a float first (finite or +inf, as a and b are finite and step > 0): a
+        // tiny step makes a count beyond any integer type.
+        let span = ((b - a) / step + 1e-9).floor();
+        if span >= 10_000.0 {
+            return Err(format!(
+                "'{spec}' makes more than 10000 points; at most 10000"
+            ));
         }
+        let count = span as usize + 1;
         return Ok((0..count)
             .map(|i| format!("{}", tidy(a + i as f64 * step)))
             .collect());

@@ -546,8 +546,11 @@ fn the_contribution_matrix_respects_the_memory_budget() {
     for i in 0..50 {
         writeln!(text, "{i},1,1,{i}").unwrap();
     }
+    // Few resampled rows, so that the episodes' rows (not the replicates) cross the budget.
     let c = AuditConfig {
-        budget: crate::limits::Budget { bytes: 4096 },
+        budget: crate::limits::Budget { bytes: 8192 },
+        resamples: 2,
+        splits: 1,
         ..AuditConfig::default()
     };
     let e = run(crate::testkit::reader(&text), &c)
@@ -557,6 +560,30 @@ fn the_contribution_matrix_respects_the_memory_budget() {
         e.contains("memory budget of 0 MB") && e.contains("--max-memory"),
         "{e}"
     );
+    assert!(
+        e.contains("episodes x") && !e.contains(" 50 episodes"),
+        "{e}"
+    );
+}
+
+#[test]
+fn huge_resample_count_is_refused_before_allocating() {
+    let text = "episode,reward,terminated,score_0\n1,1,1,1\n2,2,1,2\n";
+    for (resamples, splits) in [(usize::MAX, 1), (2, usize::MAX), (1 << 61, 1 << 62)] {
+        let c = AuditConfig {
+            budget: crate::limits::Budget::from_mb(1000),
+            resamples,
+            splits,
+            ..AuditConfig::default()
+        };
+        let e = run(crate::testkit::reader(text), &c)
+            .unwrap_err()
+            .to_string();
+        assert!(
+            e.contains("--resamples") && e.contains("budget of 1000 MB"),
+            "{e}"
+        );
+    }
 }
 
 // Regression: ids mixing integers and text ("9", "10", "1a") once made the id comparison
@@ -565,7 +592,7 @@ fn the_contribution_matrix_respects_the_memory_budget() {
 #[test]
 fn mixed_integer_and_text_episode_ids_sort_totally() {
     let mut ids = vec!["1a", "10", "9", "b", "-3", "10x", "2"];
-    ids.sort_by(|a, b| id_order(a, b));
+    ids.sort_by(|a, b| id_order(a.as_bytes(), b.as_bytes()));
     assert_eq!(ids, vec!["-3", "2", "9", "10", "10x", "1a", "b"]);
     let mut text = String::from("episode,reward,terminated,score_0\n");
     for id in ["1a", "10", "9", "b", "2", "10x"] {
@@ -573,4 +600,38 @@ fn mixed_integer_and_text_episode_ids_sort_totally() {
     }
     let r = audit_text(&text, &cfg("rtg", 0.99));
     assert_eq!(r.input.episodes, 6);
+}
+
+// Regression: `1` and `01` (equal as integers) and two invalid UTF-8 ids (equal after lossy
+// decoding) once tied, and a stable sort kept them in file order, so swapping their rows
+// changed the output. Ties now break on the raw bytes: a total order.
+#[test]
+fn ids_1_and_01_in_any_order_give_identical_output() {
+    assert_eq!(id_order(b"01", b"1"), Ordering::Less);
+    assert_eq!(id_order(b"1", b"01"), Ordering::Greater);
+    assert_eq!(id_order(b"+1", b"1"), Ordering::Less);
+    assert_eq!(id_order(b"\xfe", b"\xff"), Ordering::Less);
+    assert_eq!(id_order(b"1", b"1"), Ordering::Equal);
+    let log = |order: [&str; 2]| {
+        let mut text = String::from("episode,reward,terminated,score_0\n");
+        for (i, id) in ["3", order[0], "2", order[1], "4"].iter().enumerate() {
+            // Each id carries its own data, wherever its row is.
+            let v = match *id {
+                "1" => 5.0,
+                "01" => -2.0,
+                _ => i as f64,
+            };
+            writeln!(text, "{id},{v},1,{}", v * 0.5 - 1.0).unwrap();
+        }
+        text
+    };
+    let c = AuditConfig {
+        resamples: 50,
+        splits: 5,
+        ..AuditConfig::default()
+    };
+    let a = run(crate::testkit::reader(&log(["1", "01"])), &c).unwrap();
+    let b = run(crate::testkit::reader(&log(["01", "1"])), &c).unwrap();
+    assert_eq!(a.signal_interval, b.signal_interval);
+    assert_eq!(a.estimators, b.estimators);
 }

@@ -323,8 +323,7 @@ impl LogReader {
         }
         // Most rows continue an open episode: look it up without moving it or allocating.
         if !self.open.contains_key(id) {
-            let episode =
-                Episode::new(String::from_utf8_lossy(id).into_owned(), line, &self.layout);
+            let episode = Episode::from_raw_id(id, line, &self.layout);
             self.open.insert(
                 id.to_vec(),
                 Open {

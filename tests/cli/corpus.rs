@@ -171,6 +171,20 @@ const CASES: &[(&str, &str, &str, i32, &[&str])] = &[
         0,
         &[],
     ),
+    (
+        "ids_1_and_01.csv",
+        "ids equal as integers (accepted, ordered by raw bytes)",
+        "audit",
+        0,
+        &[],
+    ),
+    (
+        "invalid_utf8_ids.csv",
+        "invalid UTF-8 ids (accepted, ordered by raw bytes)",
+        "audit",
+        0,
+        &[],
+    ),
     ("bom.csv", "BOM (accepted)", "inspect", 0, &[]),
     ("crlf.csv", "CRLF (accepted)", "inspect", 0, &[]),
 ];
