@@ -99,7 +99,10 @@ impl ExplainedVariance {
         }
         let var_g = self.g2 / self.n - (self.g / self.n).powi(2);
         let var_e = self.e2 / self.n - (self.e / self.n).powi(2);
-        (var_g > 0.0).then(|| 1.0 - var_e / var_g)
+        // Sums that overflowed f64 leave no defined figure (not -inf, not NaN).
+        (var_g > 0.0)
+            .then(|| 1.0 - var_e / var_g)
+            .filter(|x| x.is_finite())
     }
 
     /// Adds an episode's steps with its recorded (or fitted) values.

@@ -31,9 +31,9 @@ struct WireInput {
 #[derive(Debug, Clone, Deserialize)]
 struct WireRow {
     name: String,
-    variance: f64,
-    bias_sq: f64,
-    mse: f64,
+    variance: Option<f64>,
+    bias_sq: Option<f64>,
+    mse: Option<f64>,
     snr: Option<f64>,
     ess: Option<f64>,
     cosine_half: Option<f64>,
@@ -45,7 +45,7 @@ struct WireAudit {
     tool: WireTool,
     input: WireInput,
     settings: WireSettings,
-    signal: f64,
+    signal: Option<f64>,
     estimators: Vec<WireRow>,
 }
 

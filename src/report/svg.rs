@@ -34,6 +34,37 @@ where
         .map_err(failed)
 }
 
+/// A log axis's range around finite positive `values`: a third of a decade beyond them, within
+/// [1e-300, 1e300] so that the axis's decades stay normal f64 numbers (plotters' tick search
+/// does not end on an infinite or zero-width range). Values beyond are drawn at the ends.
+fn log_range(values: &[f64]) -> (f64, f64) {
+    if values.is_empty() {
+        return (1e-3, 1.0);
+    }
+    let lo = values.iter().copied().fold(f64::INFINITY, f64::min).log10() - 0.3;
+    let hi = values
+        .iter()
+        .copied()
+        .fold(f64::NEG_INFINITY, f64::max)
+        .log10()
+        + 0.3;
+    let clamp = |e: f64| e.clamp(-300.0, 300.0);
+    (
+        10f64.powf(clamp(lo)),
+        10f64.powf(clamp(hi).max(clamp(lo) + 0.6)),
+    )
+}
+
+/// A power of ten that brings `top` (finite, >= 0) into [1, 10), and its axis-title text, so a
+/// linear axis never spans astronomically large or small numbers; 1 for tops in [1e-3, 1e5).
+fn axis_unit(top: f64) -> (f64, String) {
+    if top <= 0.0 || (1e-3..1e5).contains(&top) {
+        return (1.0, String::new());
+    }
+    let e = top.log10().floor().clamp(-300.0, 300.0);
+    (10f64.powf(e), format!(", in units of 1e{e}"))
+}
+
 /// The sweep's bias^2, variance and MSE against the swept parameter, log scale, with the
 /// one-standard-error band shaded and the recommended point circled.
 pub fn sweep_plot(r: &SweepReport) -> Result<String, String> {
@@ -42,17 +73,13 @@ pub fn sweep_plot(r: &SweepReport) -> Result<String, String> {
         .points
         .iter()
         .flat_map(|q| [q.bias_sq, q.variance, q.mse])
-        .filter(|x| *x > 0.0)
+        .flatten()
+        .filter(|x| x.is_finite() && *x > 0.0)
         .collect();
-    let lo = values.iter().copied().fold(f64::INFINITY, f64::min);
-    let hi = values.iter().copied().fold(f64::NEG_INFINITY, f64::max);
-    let (lo, hi) = if lo.is_finite() {
-        (lo / 2.0, hi * 2.0)
-    } else {
-        (1e-3, 1.0)
-    };
+    let (lo, hi) = log_range(&values);
     // Zero values cannot sit on a log axis: they are drawn on its floor (said in the caption).
-    let y = |v: f64| v.max(lo);
+    // Undefined ones are left out of the curves.
+    let y = |v: f64| v.clamp(lo, hi);
     let over = r.settings.over;
     let x_desc = match over {
         crate::sweep::Over::Lambda => "GAE lambda (dimensionless)",
@@ -94,21 +121,25 @@ pub fn sweep_plot(r: &SweepReport) -> Result<String, String> {
             .draw()
             .map_err(failed)?;
         let band = &r.choice.band;
-        let (a, b) = (band[0], band[band.len() - 1] + 1);
-        let right = if b >= p {
-            SegmentValue::Last
-        } else {
-            SegmentValue::Exact(b)
-        };
-        chart
-            .draw_series(std::iter::once(Rectangle::new(
-                [(SegmentValue::Exact(a), lo), (right, hi)],
-                BAND.mix(0.15).filled(),
-            )))
-            .map_err(failed)?
-            .label("within one standard error of the minimum")
-            .legend(|(x, y)| Rectangle::new([(x, y - 5), (x + 20, y + 5)], BAND.mix(0.3).filled()));
-        type Figure = fn(&crate::sweep::SweepPoint) -> f64;
+        if let (Some(&a), Some(&last)) = (band.first(), band.last()) {
+            let b = last + 1;
+            let right = if b >= p {
+                SegmentValue::Last
+            } else {
+                SegmentValue::Exact(b)
+            };
+            chart
+                .draw_series(std::iter::once(Rectangle::new(
+                    [(SegmentValue::Exact(a), lo), (right, hi)],
+                    BAND.mix(0.15).filled(),
+                )))
+                .map_err(failed)?
+                .label("within one standard error of the minimum")
+                .legend(|(x, y)| {
+                    Rectangle::new([(x, y - 5), (x + 20, y + 5)], BAND.mix(0.3).filled())
+                });
+        }
+        type Figure = fn(&crate::sweep::SweepPoint) -> Option<f64>;
         let series: [(&str, RGBColor, u32, Figure); 3] = [
             ("bias^2", BIAS, 2, |q| q.bias_sq),
             ("variance", VARIANCE, 2, |q| q.variance),
@@ -119,7 +150,7 @@ pub fn sweep_plot(r: &SweepReport) -> Result<String, String> {
                 .points
                 .iter()
                 .enumerate()
-                .map(|(i, q)| (SegmentValue::CenterOf(i), y(f(q))))
+                .filter_map(|(i, q)| Some((SegmentValue::CenterOf(i), y(f(q)?))))
                 .collect();
             chart
                 .draw_series(LineSeries::new(pts.clone(), color.stroke_width(width)))
@@ -132,20 +163,23 @@ pub fn sweep_plot(r: &SweepReport) -> Result<String, String> {
                 .draw_series(pts.into_iter().map(|pt| Circle::new(pt, 3, color.filled())))
                 .map_err(failed)?;
         }
-        let rec = r.choice.recommended;
-        chart
-            .draw_series(std::iter::once(Circle::new(
-                (SegmentValue::CenterOf(rec), y(r.points[rec].mse)),
-                9,
-                BAND.stroke_width(3),
-            )))
-            .map_err(failed)?
-            .label(format!(
-                "recommended: {} = {}",
-                over.key(),
-                r.points[rec].label
-            ))
-            .legend(|(x, y)| Circle::new((x + 10, y), 6, BAND.stroke_width(3)));
+        if let Some(rec) = r.choice.recommended
+            && let Some(mse) = r.points[rec].mse
+        {
+            chart
+                .draw_series(std::iter::once(Circle::new(
+                    (SegmentValue::CenterOf(rec), y(mse)),
+                    9,
+                    BAND.stroke_width(3),
+                )))
+                .map_err(failed)?
+                .label(format!(
+                    "recommended: {} = {}",
+                    over.key(),
+                    r.points[rec].label
+                ))
+                .legend(|(x, y)| Circle::new((x + 10, y), 6, BAND.stroke_width(3)));
+        }
         // The lower left is where the curves rarely go: small errors at small parameters.
         legend(&mut chart, SeriesLabelPosition::LowerLeft)?;
         root.present().map_err(failed)?;
@@ -157,22 +191,30 @@ pub fn sweep_plot(r: &SweepReport) -> Result<String, String> {
 pub fn audit_bars(r: &AuditReport) -> Result<String, String> {
     let rows = &r.estimators;
     let n = rows.len();
-    let max = rows
-        .iter()
-        .map(|e| e.mse)
-        .fold(0.0, f64::max)
-        .max(f64::MIN_POSITIVE)
-        * 1.05;
+    // Every drawn figure: the defined, finite ones (undefined rows get no bars).
+    let fig = |x: Option<f64>| x.filter(|v| v.is_finite());
+    let top = rows.iter().filter_map(|e| fig(e.mse)).fold(0.0, f64::max);
+    let (unit, unit_text) = axis_unit(top);
+    let max = if top > 0.0 { top / unit * 1.05 } else { 1.0 };
     let names: Vec<String> = rows
         .iter()
         .map(|e| {
-            if e.reference {
+            let name = if e.reference {
                 format!("{} (ref)", e.name)
             } else {
                 e.name.clone()
+            };
+            if fig(e.mse).is_none() {
+                format!("{name} (undefined)")
+            } else {
+                name
             }
         })
         .collect();
+    // (bias^2, mse) in axis units, for the rows whose figures are defined.
+    let parts = |e: &super::EstimatorRow| -> Option<(f64, f64)> {
+        Some((fig(e.bias_sq)? / unit, fig(e.mse)? / unit))
+    };
     let mut svg = String::new();
     {
         let height = (60 + 28 * n).max(240) as u32;
@@ -203,7 +245,9 @@ pub fn audit_bars(r: &AuditReport) -> Result<String, String> {
                     .unwrap_or_default(),
                 SegmentValue::Last => String::new(),
             })
-            .x_desc("squared error of one update (gradient units squared)")
+            .x_desc(format!(
+                "squared error of one update (gradient units squared{unit_text})"
+            ))
             .draw()
             .map_err(failed)?;
         let bar = |i: usize, from: f64, to: f64, color: RGBColor, opacity: f64| {
@@ -226,7 +270,7 @@ pub fn audit_bars(r: &AuditReport) -> Result<String, String> {
                 rows.iter()
                     .enumerate()
                     .filter(|(_, e)| e.bias_detected)
-                    .map(|(i, e)| bar(i, 0.0, e.bias_sq, BIAS, 0.85)),
+                    .filter_map(|(i, e)| parts(e).map(|(b, _)| bar(i, 0.0, b, BIAS, 0.85))),
             )
             .map_err(failed)?
             .label("bias^2")
@@ -236,7 +280,7 @@ pub fn audit_bars(r: &AuditReport) -> Result<String, String> {
                 rows.iter()
                     .enumerate()
                     .filter(|(_, e)| !e.bias_detected)
-                    .map(|(i, e)| bar(i, 0.0, e.bias_sq, BIAS, 0.3)),
+                    .filter_map(|(i, e)| parts(e).map(|(b, _)| bar(i, 0.0, b, BIAS, 0.3))),
             )
             .map_err(failed)?
             .label("bias^2 within resampling noise (may be 0)")
@@ -245,7 +289,7 @@ pub fn audit_bars(r: &AuditReport) -> Result<String, String> {
             .draw_series(
                 rows.iter()
                     .enumerate()
-                    .map(|(i, e)| bar(i, e.bias_sq, e.mse, VARIANCE, 0.85)),
+                    .filter_map(|(i, e)| parts(e).map(|(b, m)| bar(i, b, m, VARIANCE, 0.85))),
             )
             .map_err(failed)?
             .label("variance")
