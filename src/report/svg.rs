@@ -61,7 +61,7 @@ fn axis_unit(top: f64) -> (f64, String) {
     if top <= 0.0 || (1e-3..1e5).contains(&top) {
         return (1.0, String::new());
     }
-    let e = top.log10().floor().clamp(-300.0, 300.0);
+    let e = top.log10().floor().clamp(-300.0, 308.0);
     (10f64.powf(e), format!(", in units of 1e{e}"))
 }
 
@@ -299,4 +299,32 @@ pub fn audit_bars(r: &AuditReport) -> Result<String, String> {
         root.present().map_err(failed)?;
     }
     Ok(svg)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn plot_axes_of_astronomical_figures_stay_normal() {
+        // Figures up to f64::MAX and down to the smallest subnormal: the log axis stays within
+        // [1e-300, 1e300] with at least 0.6 decades, finite and positive.
+        for values in [
+            vec![f64::MAX],
+            vec![5e-324],
+            vec![5e-324, f64::MAX],
+            vec![1.0, 1.0],
+        ] {
+            let (lo, hi) = log_range(&values);
+            assert!(lo.is_normal() && hi.is_normal() && lo > 0.0, "{values:?}");
+            assert!(hi / lo >= 10f64.powf(0.59), "{values:?}: {lo} {hi}");
+            assert!((1e-300..=1e301).contains(&lo) && hi <= 1e301, "{values:?}");
+        }
+        // A linear axis's top is brought into [1, 10) units of a power of ten.
+        let (unit, text) = axis_unit(7.5e304);
+        assert_eq!((unit, text.as_str()), (1e304, ", in units of 1e304"));
+        let (unit, _) = axis_unit(f64::MAX);
+        assert!(unit.is_finite() && (1.0..10.0).contains(&(f64::MAX / unit)));
+        assert_eq!(axis_unit(12.0).0, 1.0);
+    }
 }

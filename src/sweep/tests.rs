@@ -184,3 +184,72 @@ fn svg_is_well_formed_and_complete() {
         "points of three series plus the marker, found {circles}"
     );
 }
+
+fn point(label: &str, value: f64, mse: Option<f64>, bias_sq: Option<f64>) -> SweepPoint {
+    SweepPoint {
+        label: label.into(),
+        value: Some(value),
+        estimator: format!("gae:{label}"),
+        gamma: 0.99,
+        bias_sq,
+        bias_detected: false,
+        variance: mse.zip(bias_sq).map(|(m, b)| m - b),
+        mse,
+        mse_se: mse.map(|_| 0.1),
+        mse_interval: None,
+        snr: None,
+        ess: None,
+        episodes_for_snr: None,
+        bias_limited: false,
+        notes: vec![],
+    }
+}
+
+#[test]
+fn sweep_overflowed_sums_do_not_panic() {
+    // Every point undefined (sums beyond 1e308): no choice, instead of a panic in the band.
+    let none = [point("0", 0.0, None, None), point("1", 1.0, None, None)];
+    let c = choose(&none, Over::Lambda);
+    assert_eq!((c.best, c.recommended), (None, None));
+    assert!(c.band.is_empty());
+    assert!(
+        c.text.contains("no grid point has a defined MSE"),
+        "{}",
+        c.text
+    );
+    // Undefined points take no part; an MSE near f64::MAX whose band limit overflows to
+    // infinity still gives a choice among the defined points.
+    let mut some = [
+        point("0", 0.0, None, None),
+        point("0.5", 0.5, Some(f64::MAX), Some(1.0)),
+        point("1", 1.0, Some(f64::MAX), Some(0.5)),
+    ];
+    some[1].mse_se = Some(f64::MAX); // limit = MAX + MAX = inf
+    let c = choose(&some, Over::Lambda);
+    assert_eq!(c.band, vec![1, 2]);
+    assert_eq!(c.recommended, Some(2));
+    assert!(
+        c.text.contains("1 point(s) have no defined MSE"),
+        "{}",
+        c.text
+    );
+}
+
+#[test]
+fn grid_step_too_small_for_the_size_limit() {
+    let family = Estimator::RtgDiscounted;
+    for spec in ["0:1:1e-300", "0:1:5e-324", "0:1:0.00001"] {
+        let e = parse_grid(Over::Lambda, spec, family, 0.99).unwrap_err();
+        assert!(
+            e.contains("too small") && e.contains("at most 10000"),
+            "{e}"
+        );
+    }
+    // The quoted smallest step is enough: 1.001e-4 gives 9991 points.
+    assert_eq!(
+        parse_grid(Over::Lambda, "0:1:1.001e-4", family, 0.99)
+            .unwrap()
+            .len(),
+        9991
+    );
+}

@@ -4,7 +4,8 @@
 
 use crate::util::run;
 
-/// (file, failure class, command, exit code, fragments the message must contain)
+/// (file, failure class, command and options, exit code, fragments the message must contain);
+/// a file accepted with exit 0 must give output without NaN or inf.
 const CASES: &[(&str, &str, &str, i32, &[&str])] = &[
     (
         "malformed_number.csv",
@@ -140,6 +141,37 @@ const CASES: &[(&str, &str, &str, i32, &[&str])] = &[
         &["1 episode(s)", "at least 2"],
     ),
     ("bom.csv", "BOM (accepted)", "inspect", 0, &[]),
+    // Figures that overflow f64: a report of undefined figures, never NaN, inf or a panic.
+    ("overflow_sums.csv", "sums beyond 1e308", "audit", 0, &[]),
+    (
+        "overflow_sums.csv",
+        "sums beyond 1e308, swept",
+        "sweep --over gamma",
+        0,
+        &[],
+    ),
+    ("overflow_values.csv", "values of +-1e308", "audit", 0, &[]),
+    (
+        "overflow_values.csv",
+        "values of +-1e308, swept",
+        "sweep --over lambda --format json",
+        0,
+        &[],
+    ),
+    (
+        "astronomical_scores.csv",
+        "scores near 1e200",
+        "audit",
+        0,
+        &[],
+    ),
+    (
+        "astronomical_rewards.csv",
+        "rewards near 1e152",
+        "audit --format csv",
+        0,
+        &[],
+    ),
     ("crlf.csv", "CRLF (accepted)", "inspect", 0, &[]),
 ];
 
@@ -156,7 +188,9 @@ fn every_corpus_file_behaves_as_its_class_says() {
     }
     for (file, class, command, code, wants) in CASES {
         let path = format!("{dir}/{file}");
-        let (got, out, err) = run(&[command, &path]);
+        let mut args: Vec<&str> = command.split_whitespace().collect();
+        args.insert(1, &path);
+        let (got, out, err) = run(&args);
         assert_eq!(got, *code, "{class} ({file}): {err}{out}");
         if *code == 2 {
             assert!(
@@ -174,6 +208,12 @@ fn every_corpus_file_behaves_as_its_class_says() {
             !err.contains("panicked") && !err.contains("backtrace"),
             "{class}: {err}"
         );
+        if *code == 0 {
+            assert!(
+                !crate::hardening_numeric::prints_non_finite(&out),
+                "{class}: a NaN or inf in the output:\n{out}"
+            );
+        }
         assert!(
             err.lines().count() <= 3,
             "{class}: one short message: {err}"
