@@ -244,7 +244,15 @@ fn compare(
             };
             (!worse, Some("the baseline value is 0".to_string()))
         }
+        // An undefined figure satisfies no check, whatever the baseline held.
         (Some(_), None, _) => (false, Some(format!("{} became undefined", rule.stat.key()))),
+        (None, None, _) => (
+            false,
+            Some(format!(
+                "{} is undefined here and in the baseline",
+                rule.stat.key()
+            )),
+        ),
         (None, _, _) => (
             true,
             Some(format!("{} is undefined in the baseline", rule.stat.key())),

@@ -1,5 +1,11 @@
 //! The report model: built once from the statistics, serialised as the public JSON wire format
 //! (schema `gradaudit.audit/1`), and only formatted by the exporters beside this file.
+//!
+//! Every figure of the model is a finite number or None. A sum that overflowed f64 reaches the
+//! statistics as inf or NaN, and clamps such as max(NaN, 0) = 0 can turn it into a plausible
+//! finite value; so a row's figures are taken only when everything they derive from is finite:
+//! its own gradient and spread (gradient, norm, variance), then the reference's (for bias_sq,
+//! mse, ess), then the signal (for snr, episodes_for_snr). Otherwise they are None with a note.
 
 pub mod columns;
 pub mod csv;
@@ -166,6 +172,30 @@ fn superseded(note: &str, own: bool, bias: bool, signal: bool) -> bool {
         || (!signal && (starts("snr undefined") || starts("episodes_for_snr")))
 }
 
+/// Why figures are undefined after an overflow: the estimator's own figures, the reference's,
+/// or their difference (in that order of precedence); None when nothing overflowed.
+fn overflow_note(own: bool, reference: bool, bias: bool) -> Option<&'static str> {
+    if !own {
+        Some(
+            "every figure undefined: this estimator's gradient or its resampling spread \
+             overflowed the range of f64 (about 1.8e308); rescale the rewards or the scores",
+        )
+    } else if !reference {
+        Some(
+            "bias_sq, mse, snr, ess and episodes_for_snr undefined: the reference's gradient \
+             or its resampling spread overflowed the range of f64; rescale the rewards or the \
+             scores",
+        )
+    } else if !bias {
+        Some(
+            "bias_sq, mse, snr, ess and episodes_for_snr undefined: the difference from the \
+             reference overflowed the range of f64; rescale the rewards or the scores",
+        )
+    } else {
+        None
+    }
+}
+
 impl EstimatorRow {
     /// The row of estimator `s`; `r` is the reference's figures (see [`ReferenceFigures`]).
     pub fn new(name: String, reference: bool, s: EstimatorStats, r: &ReferenceFigures) -> Self {
@@ -187,24 +217,15 @@ impl EstimatorRow {
             .into_iter()
             .filter(|n| !superseded(n, own, bias, signal))
             .collect();
-        if !own {
+        notes.extend(overflow_note(own, r.defined, bias).map(String::from));
+        // N V / (signal / target - bias^2) beyond u64 saturates to u64::MAX in the statistics:
+        // an overflow too, not a batch size.
+        let planned = s.episodes_for_snr.filter(|_| signal);
+        let episodes_for_snr = planned.filter(|n| *n < u64::MAX);
+        if planned.is_some() && episodes_for_snr.is_none() {
             notes.push(
-                "every figure undefined: this estimator's gradient or its resampling spread \
-                 overflowed the range of f64 (about 1.8e308); rescale the rewards or \
-                 the scores"
-                    .into(),
-            );
-        } else if !r.defined {
-            notes.push(
-                "bias_sq, mse, snr, ess and episodes_for_snr undefined: the reference's \
-                 gradient or its resampling spread overflowed the range of f64; rescale the \
-                 rewards or the scores"
-                    .into(),
-            );
-        } else if !bias {
-            notes.push(
-                "bias_sq, mse, snr, ess and episodes_for_snr undefined: the difference from \
-                 the reference overflowed the range of f64; rescale the rewards or the scores"
+                "episodes_for_snr undefined: the batch size it plans for is beyond 1.8e19 \
+                 episodes (the signal is tiny next to the variance)"
                     .into(),
             );
         }
@@ -231,7 +252,7 @@ impl EstimatorRow {
                 .cosine_half_interval
                 .filter(|_| own)
                 .and_then(finite_interval),
-            episodes_for_snr: s.episodes_for_snr.filter(|_| signal),
+            episodes_for_snr,
             bias_limited: signal && s.bias_limited,
             notes,
         }

@@ -169,3 +169,22 @@ fn csv_cells_of_non_finite_figures_are_empty() {
         "-"
     );
 }
+
+#[test]
+fn a_saturated_batch_size_is_undefined() {
+    // 1e310 episodes saturate to u64::MAX in the statistics: not a batch size to report.
+    let refs = ReferenceFigures::of(&stats(), &signal());
+    let huge = EstimatorStats {
+        episodes_for_snr: Some(u64::MAX),
+        ..stats()
+    };
+    let row = EstimatorRow::new("rtg".into(), false, huge, &refs);
+    assert_eq!(row.episodes_for_snr, None);
+    assert!(
+        row.notes
+            .iter()
+            .any(|n| n.starts_with("episodes_for_snr undefined"))
+    );
+    let row = EstimatorRow::new("rtg".into(), false, stats(), &refs);
+    assert_eq!(row.episodes_for_snr, Some(4));
+}

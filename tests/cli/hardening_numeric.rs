@@ -335,3 +335,24 @@ fn grid_step_too_small_for_the_size_limit_says_so() {
     assert!(err.contains("at most 10000"), "{err}");
     assert!(!err.contains("empty"), "{err}");
 }
+
+#[test]
+fn regression_check_never_passes_on_undefined_figure() {
+    // A baseline written from an overflowed audit (null variance, bias_sq and mse) is read,
+    // and a regression check on a figure undefined now fails, whatever the baseline held.
+    let dir = Dir::new("overflow-baseline");
+    let values = fixture("overflow_values.csv");
+    let mut audit = vec!["audit", values.as_str(), "--format", "json"];
+    audit.extend(FAST);
+    let base = dir.write("base.json", expect(&audit, 0).as_bytes());
+    let gate = |spec: &str| {
+        let mut args = vec!["gate", values.as_str(), "--baseline", &base, "--regress", spec];
+        args.extend(FAST);
+        expect(&args, if spec.starts_with("td") { 1 } else { 0 })
+    };
+    let out = gate("td:mse:10");
+    assert!(out.contains("FAIL  td mse"), "{out}");
+    assert!(out.contains("undefined here and in the baseline"), "{out}");
+    let out = gate("rtg:mse:10");
+    assert!(out.contains("pass  rtg mse"), "{out}");
+}
