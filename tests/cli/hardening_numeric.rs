@@ -166,23 +166,34 @@ fn gate_never_passes_on_undefined_figure() {
 }
 
 #[test]
-fn gate_json_of_overflowed_audit_has_no_non_finite_number() {
+fn gate_at_interval_end_never_passes_on_undefined_figure() {
     let values = fixture("overflow_values.csv");
     let mut args = vec![
         "gate",
         values.as_str(),
         "--require",
-        "*:snr>=0.5@interval",
+        "*:episodes_for_snr<=10@interval",
         "--format",
         "json",
     ];
     args.extend(FAST);
     let v = parse(&expect(&args, 1));
-    for o in v["outcomes"].as_array().unwrap() {
+    let outcomes = v["outcomes"].as_array().unwrap();
+    for o in outcomes {
         if o["measured"].is_null() {
             assert_eq!(o["passed"], false, "{o}");
         }
     }
+    // At the interval end td's planning figure is undefined (it was NaN.max(1) = 1, a pass).
+    let td = outcomes.iter().find(|o| o["estimator"] == "td").unwrap();
+    assert!(td["measured"].is_null() && td["passed"] == false, "{td}");
+    assert!(
+        v["audit"]["estimators"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .all(|e| { e["mse"].is_null() == e["bias_sq"].is_null() })
+    );
 }
 
 /// Runs with a time limit: a plot of astronomical figures must finish (plotters' tick search
@@ -346,7 +357,14 @@ fn regression_check_never_passes_on_undefined_figure() {
     audit.extend(FAST);
     let base = dir.write("base.json", expect(&audit, 0).as_bytes());
     let gate = |spec: &str| {
-        let mut args = vec!["gate", values.as_str(), "--baseline", &base, "--regress", spec];
+        let mut args = vec![
+            "gate",
+            values.as_str(),
+            "--baseline",
+            &base,
+            "--regress",
+            spec,
+        ];
         args.extend(FAST);
         expect(&args, if spec.starts_with("td") { 1 } else { 0 })
     };
