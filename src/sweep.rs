@@ -392,13 +392,18 @@ fn mse_spread(
     let shift = m - mse;
     mses.sort_by(f64::total_cmp);
     let iv = Interval {
-        low: (percentile(&mses, alpha / 2.0) - shift).max(0.0),
-        high: (percentile(&mses, 1.0 - alpha / 2.0) - shift).max(0.0),
+        low: at_least_0(percentile(&mses, alpha / 2.0) - shift),
+        high: at_least_0(percentile(&mses, 1.0 - alpha / 2.0) - shift),
     };
     (
         crate::report::finite(var.sqrt()),
         crate::report::finite_interval(iv),
     )
+}
+
+/// max(x, 0) that keeps a NaN (f64::max(NaN, 0) is 0, which would hide an overflow).
+fn at_least_0(x: f64) -> f64 {
+    if x < 0.0 { 0.0 } else { x }
 }
 
 /// bias_sq + variance of estimator k as estimated inside one replicate (mean row `row`).
@@ -411,9 +416,9 @@ fn replicate_mse(plan: &Plan, k: usize, reference: usize, row: &[f64], n: usize)
     let sq: f64 = gk.iter().map(|x| x * x).sum();
     let dist: f64 = gk.iter().zip(&gr).map(|(a, b)| (a - b).powi(2)).sum();
     let nf = n as f64;
-    let var_k = ((q - sq) / nf).max(0.0);
-    let var_d = ((r - dist) / nf).max(0.0);
-    (dist - var_d).max(0.0) + var_k
+    let var_k = at_least_0((q - sq) / nf);
+    let var_d = at_least_0((r - dist) / nf);
+    at_least_0(dist - var_d) + var_k
 }
 
 /// Whether a grid point sits where its parameter ends (lambda or gamma 0 or 1, n = 1 or full).

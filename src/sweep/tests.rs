@@ -253,3 +253,11 @@ fn grid_step_too_small_for_the_size_limit() {
         9991
     );
 }
+
+#[test]
+fn clamping_at_zero_keeps_an_overflow_visible() {
+    assert_eq!(at_least_0(-2.0), 0.0);
+    assert_eq!(at_least_0(3.0), 3.0);
+    assert!(at_least_0(f64::NAN).is_nan());
+    assert_eq!(at_least_0(f64::INFINITY), f64::INFINITY);
+}
