@@ -7,7 +7,9 @@ use crate::episode::End;
 use crate::error::{Error, Result};
 use crate::estimator::{Estimator, Need};
 use crate::log::{LogReader, Role, Schema};
-use crate::report::{AuditReport, EstimatorRow, InputSummary, Settings, Skipped, Verdict};
+use crate::report::{
+    AuditReport, EstimatorRow, InputSummary, ReferenceFigures, Settings, Skipped, Verdict,
+};
 use crate::resample;
 use crate::stats::{self, StatsConfig};
 use ndarray::Array2;
@@ -107,6 +109,11 @@ impl AuditConfig {
             },
             "use fewer --resamples or --splits, or raise --max-memory",
         )?;
+        if self.splits == 0 {
+            return Err(Error::usage(
+                "--splits 0: cosine_half needs at least one random half split",
+            ));
+        }
         if !(self.confidence > 0.0 && self.confidence < 1.0) {
             return Err(Error::usage(
                 "--confidence must lie strictly between 0 and 1",
@@ -531,15 +538,16 @@ pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
         &scfg,
     );
 
+    let refs = ReferenceFigures::of(&stats[reference], &signal);
     let mut estimators: Vec<EstimatorRow> = plan
         .estimators
         .iter()
         .zip(stats)
         .enumerate()
-        .map(|(k, (e, s))| EstimatorRow::new(e.to_string(), k == reference, s))
+        .map(|(k, (e, s))| EstimatorRow::new(e.to_string(), k == reference, s, &refs))
         .collect();
-    estimators.sort_by(|a, b| a.mse.total_cmp(&b.mse).then_with(|| a.name.cmp(&b.name)));
-    let verdict = Verdict::from_rows(&estimators, signal.signal);
+    crate::report::sort_rows(&mut estimators);
+    let verdict = Verdict::from_rows(&estimators, refs.signal);
     let mut report = AuditReport {
         tool: crate::report::Tool::current(),
         input,
@@ -552,9 +560,9 @@ pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
             reference: cfg.reference.to_string(),
             splits: cfg.splits,
         },
-        signal: signal.signal,
-        signal_interval: signal.signal_interval,
-        reference_variance: signal.reference_variance,
+        signal: refs.signal,
+        signal_interval: refs.signal_interval,
+        reference_variance: refs.variance,
         estimators,
         skipped,
         verdict,

@@ -204,6 +204,12 @@ impl Plan {
             out[j] = s[j] - b * h[j];
         }
         if self.estimators[k] == Estimator::Whitened {
+            if !(q.is_finite() && b.is_finite()) {
+                // Overflowed sums: the spread of the returns is unknown, not zero, so the
+                // gradient is undefined (NaN here, None in the report), not taken as zero.
+                out.fill(f64::NAN);
+                return GradNote::Ok;
+            }
             let var = q / t - b * b;
             // Relative threshold: with constant returns var is rounding noise around 0, and
             // dividing by its square root would blow that noise up into a huge gradient.

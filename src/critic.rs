@@ -107,7 +107,10 @@ impl ExplainedVariance {
         let n = self.n as f64;
         let var_g = self.g2.value() / n - (self.g.value() / n).powi(2);
         let var_e = self.e2.value() / n - (self.e.value() / n).powi(2);
-        (var_g > 0.0).then(|| 1.0 - var_e / var_g)
+        // Sums that overflowed f64 leave no defined figure (not -inf, not NaN).
+        (var_g > 0.0)
+            .then(|| 1.0 - var_e / var_g)
+            .filter(|x| x.is_finite())
     }
 
     /// Adds an episode's steps with its recorded (or fitted) values: plain sums over its steps

@@ -19,21 +19,24 @@ pub fn worst_relative_sd(k: usize) -> f64 {
 pub fn rescale(report: &mut AuditReport, k: usize) {
     let s = 1.0 / k as f64;
     let r = s.sqrt();
-    report.signal *= s;
-    report.reference_variance *= s;
-    report.signal_interval.low *= s;
-    report.signal_interval.high *= s;
+    let scale = |x: &mut Option<f64>, by: f64| *x = x.map(|v| v * by);
+    let scale_iv = |i: &mut Option<crate::stats::Interval>, by: f64| {
+        if let Some(i) = i {
+            i.low *= by;
+            i.high *= by;
+        }
+    };
+    scale(&mut report.signal, s);
+    scale(&mut report.reference_variance, s);
+    scale_iv(&mut report.signal_interval, s);
     for e in &mut report.estimators {
-        e.variance *= s;
-        e.bias_sq *= s;
-        e.mse *= s;
-        e.bias_sq_interval.low *= s;
-        e.bias_sq_interval.high *= s;
-        e.gradient_norm *= r;
-        e.gradient_norm_interval.low *= r;
-        e.gradient_norm_interval.high *= r;
-        e.bias_norm_interval.low *= r;
-        e.bias_norm_interval.high *= r;
+        scale(&mut e.variance, s);
+        scale(&mut e.bias_sq, s);
+        scale(&mut e.mse, s);
+        scale_iv(&mut e.bias_sq_interval, s);
+        scale(&mut e.gradient_norm, r);
+        scale_iv(&mut e.gradient_norm_interval, r);
+        scale_iv(&mut e.bias_norm_interval, r);
     }
     report.input.sketch = Some(Sketch {
         k,
@@ -144,7 +147,10 @@ mod tests {
         };
         // Exact: every estimator's gradient projects, sum_t Psi_t (Z s_t) = Z g.
         for name in ["rtg", "rtg_discounted"] {
-            let (gf, gs) = (row(&a, name).gradient, row(&b, name).gradient);
+            let (gf, gs) = (
+                row(&a, name).gradient.unwrap(),
+                row(&b, name).gradient.unwrap(),
+            );
             for (j, zj) in z.iter().enumerate() {
                 let proj: f64 = zj.iter().zip(&gf).map(|(x, y)| x * y).sum();
                 assert!(
@@ -171,7 +177,10 @@ mod tests {
         let tr: f64 = (0..D).map(|i| cov[i][i]).sum();
         let tr2: f64 = cov.iter().flatten().map(|x| x * x).sum();
         let sd = (2.0 * tr2 / K as f64).sqrt();
-        let (vf, vs) = (row(&a, "rtg").variance, row(&b, "rtg").variance);
+        let (vf, vs) = (
+            row(&a, "rtg").variance.unwrap(),
+            row(&b, "rtg").variance.unwrap(),
+        );
         assert!(
             (vf / tr - 1.0).abs() < 0.15,
             "bootstrap trace {vf} vs sample {tr}"

@@ -8,7 +8,7 @@ use crate::contrib::Plan;
 use crate::error::{Error, Result};
 use crate::estimator::Estimator;
 use crate::log::{LogReader, Role};
-use crate::report::{InputSummary, Tool};
+use crate::report::{EstimatorRow, InputSummary, ReferenceFigures, Tool};
 use crate::stats::{self, Interval, StatsConfig, percentile};
 use crate::warnings::Warnings;
 use serde::Serialize;
@@ -59,6 +59,9 @@ pub struct GridPoint {
     pub gamma: f64,
 }
 
+/// The most points a start:stop:step grid may have.
+const MAX_GRID: usize = 10_000;
+
 /// Values like 0.15000000000000002 from start + i * step are rounded to 10 decimals.
 fn tidy(x: f64) -> f64 {
     (x * 1e10).round() / 1e10
@@ -80,15 +83,19 @@ fn parse_values(spec: &str) -> Result<Vec<String>, String> {
                 "'{spec}': use start:stop:step with stop >= start and step > 0"
             ));
         }
-        // Checked as a float first (finite or +inf, as a and b are finite and step > 0): a
-        // tiny step makes a count beyond any integer type.
-        let span = ((b - a) / step + 1e-9).floor();
-        if span >= 10_000.0 {
+        // Counted in f64 first: a tiny step makes a count beyond usize (or infinite).
+        let count = ((b - a) / step + 1e-9).floor() + 1.0;
+        if count.is_nan() || count > MAX_GRID as f64 {
             return Err(format!(
-                "'{spec}' makes more than 10000 points; at most 10000"
+                "'{spec}': the step {} is too small, it makes {} points; at most \
+                 {MAX_GRID} (use a step of at least {})",
+                crate::report::table::num(step),
+                crate::report::table::num(count),
+                // Rounded up in the fourth digit, so that the step quoted is enough.
+                crate::report::table::num((b - a) / (MAX_GRID as f64 - 1.0) * 1.001)
             ));
         }
-        let count = span as usize + 1;
+        let count = count as usize;
         return Ok((0..count)
             .map(|i| format!("{}", tidy(a + i as f64 * step)))
             .collect());
@@ -193,10 +200,11 @@ pub struct SweepPoint {
     pub value: Option<f64>,
     pub estimator: String,
     pub gamma: f64,
-    pub bias_sq: f64,
+    /// Null where undefined: a sum overflowed f64, or a figure it derives from did.
+    pub bias_sq: Option<f64>,
     pub bias_detected: bool,
-    pub variance: f64,
-    pub mse: f64,
+    pub variance: Option<f64>,
+    pub mse: Option<f64>,
     /// Bootstrap standard error of the MSE estimate.
     pub mse_se: Option<f64>,
     pub mse_interval: Option<Interval>,
@@ -221,12 +229,12 @@ pub struct SweepSettings {
 
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct Choice {
-    /// Index of the MSE-minimising point.
-    pub best: usize,
+    /// Index of the MSE-minimising point; null when no point has a defined MSE.
+    pub best: Option<usize>,
     /// Indices of the points whose MSE is within one standard error of the minimum.
     pub band: Vec<usize>,
-    /// Index of the recommended point: the least biased in the band.
-    pub recommended: usize,
+    /// Index of the recommended point: the least biased in the band; null with `best`.
+    pub recommended: Option<usize>,
     pub text: String,
 }
 
@@ -235,7 +243,8 @@ pub struct SweepReport {
     pub tool: Tool,
     pub input: InputSummary,
     pub settings: SweepSettings,
-    pub signal: f64,
+    /// Null when the reference's sums overflowed.
+    pub signal: Option<f64>,
     pub points: Vec<SweepPoint>,
     pub choice: Choice,
     pub warnings: Warnings,
@@ -289,61 +298,38 @@ pub fn run(reader: LogReader, cfg: &SweepConfig) -> Result<SweepReport> {
     let (stats, signal) =
         stats::summarise(&plan, 0, &point, replicates.view(), halves.view(), &scfg);
 
-    let alpha = 1.0 - cfg.audit.confidence;
+    let refs = ReferenceFigures::of(&stats[0], &signal);
     let points: Vec<SweepPoint> = cfg
         .grid
         .iter()
         .enumerate()
         .map(|(i, g)| {
             let k = i + 1;
-            let s = &stats[k];
-            // The MSE estimate inside each replicate, from its exact within-replicate variances
-            // (see contrib.rs): bias_sq_b = max(0, ||d_b||^2 - V_d,b), mse_b = bias_sq_b + V_k,b.
-            let mut mses: Vec<f64> = replicates
-                .outer_iter()
-                .map(|row| {
-                    let row = row.as_slice().expect("rows are contiguous");
-                    replicate_mse(&plan, k, 0, row, n)
-                })
-                .collect();
-            let (mse_se, mse_interval) = if mses.len() >= 2 {
-                let m = mses.iter().sum::<f64>() / mses.len() as f64;
-                let var =
-                    mses.iter().map(|x| (x - m).powi(2)).sum::<f64>() / (mses.len() - 1) as f64;
-                // The replicates' mean exceeds the estimate by about V_d (the paired squared
-                // norm's own noise), so the percentiles are shifted back by the difference.
-                let shift = m - s.mse;
-                mses.sort_by(f64::total_cmp);
-                let iv = Interval {
-                    low: (percentile(&mses, alpha / 2.0) - shift).max(0.0),
-                    high: (percentile(&mses, 1.0 - alpha / 2.0) - shift).max(0.0),
-                };
-                (Some(var.sqrt()), Some(iv))
-            } else {
-                (None, None)
-            };
-            let notes = s
-                .notes
-                .iter()
-                .filter(|n| !n.starts_with("cosine_half"))
-                .cloned()
-                .collect();
+            // The report's row rules apply: figures derived from overflowed ones are undefined.
+            let row = EstimatorRow::new(g.label.clone(), false, stats[k].clone(), &refs);
+            let (mse_se, mse_interval) = row.mse.map_or((None, None), |mse| {
+                mse_spread(&plan, k, &replicates, n, mse, cfg)
+            });
             SweepPoint {
                 label: g.label.clone(),
                 value: g.value.is_finite().then_some(g.value),
                 estimator: g.estimator.to_string(),
                 gamma: g.gamma,
-                bias_sq: s.bias_sq,
-                bias_detected: s.bias_detected,
-                variance: s.variance,
-                mse: s.mse,
+                bias_sq: row.bias_sq,
+                bias_detected: row.bias_detected,
+                variance: row.variance,
+                mse: row.mse,
                 mse_se,
                 mse_interval,
-                snr: s.snr,
-                ess: s.ess,
-                episodes_for_snr: s.episodes_for_snr,
-                bias_limited: s.bias_limited,
-                notes,
+                snr: row.snr,
+                ess: row.ess,
+                episodes_for_snr: row.episodes_for_snr,
+                bias_limited: row.bias_limited,
+                notes: row
+                    .notes
+                    .into_iter()
+                    .filter(|n| !n.starts_with("cosine_half"))
+                    .collect(),
             }
         })
         .collect();
@@ -368,11 +354,56 @@ pub fn run(reader: LogReader, cfg: &SweepConfig) -> Result<SweepReport> {
             confidence: cfg.audit.confidence,
             target_snr: cfg.audit.target_snr,
         },
-        signal: signal.signal,
+        signal: refs.signal,
         points,
         choice,
         warnings,
     })
+}
+
+/// Bootstrap standard error and shifted percentile interval of point k's MSE estimate `mse`,
+/// from each replicate's own MSE estimate; None when fewer than two replicates, or when a
+/// replicate's estimate overflowed f64 (a spread of overflowed figures is undefined).
+fn mse_spread(
+    plan: &Plan,
+    k: usize,
+    replicates: &ndarray::Array2<f64>,
+    n: usize,
+    mse: f64,
+    cfg: &SweepConfig,
+) -> (Option<f64>, Option<Interval>) {
+    // The MSE estimate inside each replicate, from its exact within-replicate variances
+    // (see contrib.rs): bias_sq_b = max(0, ||d_b||^2 - V_d,b), mse_b = bias_sq_b + V_k,b.
+    let mut mses: Vec<f64> = replicates
+        .outer_iter()
+        .map(|row| {
+            let row = row.as_slice().expect("rows are contiguous");
+            replicate_mse(plan, k, 0, row, n)
+        })
+        .collect();
+    if mses.len() < 2 || mses.iter().any(|x| !x.is_finite()) {
+        return (None, None);
+    }
+    let alpha = 1.0 - cfg.audit.confidence;
+    let m = mses.iter().sum::<f64>() / mses.len() as f64;
+    let var = mses.iter().map(|x| (x - m).powi(2)).sum::<f64>() / (mses.len() - 1) as f64;
+    // The replicates' mean exceeds the estimate by about V_d (the paired squared norm's own
+    // noise), so the percentiles are shifted back by the difference.
+    let shift = m - mse;
+    mses.sort_by(f64::total_cmp);
+    let iv = Interval {
+        low: at_least_0(percentile(&mses, alpha / 2.0) - shift),
+        high: at_least_0(percentile(&mses, 1.0 - alpha / 2.0) - shift),
+    };
+    (
+        crate::report::finite(var.sqrt()),
+        crate::report::finite_interval(iv),
+    )
+}
+
+/// max(x, 0) that keeps a NaN (f64::max(NaN, 0) is 0, which would hide an overflow).
+fn at_least_0(x: f64) -> f64 {
+    if x < 0.0 { 0.0 } else { x }
 }
 
 /// bias_sq + variance of estimator k as estimated inside one replicate (mean row `row`).
@@ -385,9 +416,9 @@ fn replicate_mse(plan: &Plan, k: usize, reference: usize, row: &[f64], n: usize)
     let sq: f64 = gk.iter().map(|x| x * x).sum();
     let dist: f64 = gk.iter().zip(&gr).map(|(a, b)| (a - b).powi(2)).sum();
     let nf = n as f64;
-    let var_k = ((q - sq) / nf).max(0.0);
-    let var_d = ((r - dist) / nf).max(0.0);
-    (dist - var_d).max(0.0) + var_k
+    let var_k = at_least_0((q - sq) / nf);
+    let var_d = at_least_0((r - dist) / nf);
+    at_least_0(dist - var_d) + var_k
 }
 
 /// Whether a grid point sits where its parameter ends (lambda or gamma 0 or 1, n = 1 or full).
@@ -401,32 +432,41 @@ fn natural_limit(over: Over, p: &SweepPoint) -> bool {
 }
 
 /// The MSE-minimising point, the one-standard-error band around it, and the least biased point
-/// of the band (ties go to the larger parameter, the conservative side for every sweep).
+/// of the band (ties go to the larger parameter, the conservative side for every sweep). Points
+/// whose MSE is undefined take no part; when no point has one there is no choice.
 pub fn choose(points: &[SweepPoint], over: Over) -> Choice {
-    let best = (0..points.len())
-        .min_by(|&a, &b| points[a].mse.total_cmp(&points[b].mse))
-        .expect("the grid is not empty");
-    let limit = points[best].mse + points[best].mse_se.unwrap_or(0.0);
-    let band: Vec<usize> = (0..points.len())
-        .filter(|&i| points[i].mse <= limit)
-        .collect();
-    let recommended = *band
+    use crate::report::table::num;
+    let defined: Vec<(usize, f64, f64)> = points
         .iter()
-        .min_by(|&&a, &&b| {
-            points[a]
-                .bias_sq
-                .total_cmp(&points[b].bias_sq)
-                .then(b.cmp(&a))
-        })
-        .expect("the band holds the best point");
-    let (b, r) = (&points[best], &points[recommended]);
+        .enumerate()
+        .filter_map(|(i, p)| Some((i, p.mse?, p.bias_sq?)))
+        .collect();
+    let Some(&(best, best_mse, _)) = defined.iter().min_by(|a, b| a.1.total_cmp(&b.1)) else {
+        return Choice {
+            best: None,
+            band: Vec::new(),
+            recommended: None,
+            text: "no grid point has a defined MSE: the log's sums overflowed the range of f64 \
+                   (see the notes); rescale the rewards or the scores"
+                .into(),
+        };
+    };
+    let b = &points[best];
+    let limit = best_mse + b.mse_se.unwrap_or(0.0);
+    let in_band: Vec<&(usize, f64, f64)> = defined.iter().filter(|p| p.1 <= limit).collect();
+    let band: Vec<usize> = in_band.iter().map(|p| p.0).collect();
+    let recommended = in_band
+        .iter()
+        .min_by(|a, b| a.2.total_cmp(&b.2).then(b.0.cmp(&a.0)))
+        .map_or(best, |p| p.0);
+    let r = &points[recommended];
     let mut text = format!(
         "lowest MSE at {} = {} (mse {}); {} point(s) lie within one standard error ({})",
         over.key(),
         b.label,
-        crate::report::table::num(b.mse),
+        num(best_mse),
         band.len(),
-        b.mse_se.map_or("n/a".into(), crate::report::table::num)
+        b.mse_se.map_or("n/a".into(), num)
     );
     text.push_str(&format!(
         "; recommended: {} = {}, the least biased of them (bias does not shrink with more \
@@ -435,6 +475,12 @@ pub fn choose(points: &[SweepPoint], over: Over) -> Choice {
         r.label,
         over.conservative_side()
     ));
+    if defined.len() < points.len() {
+        text.push_str(&format!(
+            "; {} point(s) have no defined MSE (their sums overflowed) and were left out",
+            points.len() - defined.len()
+        ));
+    }
     if band.len() == points.len() && points.len() > 1 {
         text.push_str(
             "; every grid point is within one standard error: this log cannot tell the settings \
@@ -448,9 +494,9 @@ pub fn choose(points: &[SweepPoint], over: Over) -> Choice {
         }
     }
     Choice {
-        best,
+        best: Some(best),
         band,
-        recommended,
+        recommended: Some(recommended),
         text,
     }
 }

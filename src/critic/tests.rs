@@ -55,7 +55,9 @@ fn value_baseline_gradient(text: &str, in_sample: bool) -> f64 {
         .iter()
         .find(|e| e.name == "value_baseline")
         .unwrap()
-        .gradient[0]
+        .gradient
+        .as_ref()
+        .unwrap()[0]
 }
 
 // With p = 2 M + 3 = 83 regressors fitted on N = 400 episodes, the in-sample fitted value of

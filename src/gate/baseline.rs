@@ -166,14 +166,14 @@ impl Baseline {
             Stat::EpisodesForSnr => r.episodes_for_snr.map(|n| n as f64),
             // Derived as for the current report; undefined when a figure they need is null.
             Stat::RelativeBias | Stat::RelativeVariance => Figures {
-                variance: r.variance?,
-                bias_sq: r.bias_sq?,
-                mse: r.mse?,
+                variance: r.variance,
+                bias_sq: r.bias_sq,
+                mse: r.mse,
                 snr: r.snr,
                 ess: r.ess,
                 cosine_half: r.cosine_half,
                 episodes_for_snr: r.episodes_for_snr,
-                signal: self.audit.signal?,
+                signal: self.audit.signal,
             }
             .stat(stat),
         }
@@ -307,7 +307,15 @@ fn compare(
             };
             (!worse, Some("the baseline value is 0".to_string()))
         }
+        // An undefined figure satisfies no check, whatever the baseline held.
         (Some(_), None, _) => (false, Some(format!("{} became undefined", rule.stat.key()))),
+        (None, None, _) => (
+            false,
+            Some(format!(
+                "{} is undefined here and in the baseline",
+                rule.stat.key()
+            )),
+        ),
         (None, _, _) => (
             true,
             Some(format!("{} is undefined in the baseline", rule.stat.key())),

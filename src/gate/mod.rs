@@ -74,17 +74,17 @@ impl Stat {
 pub type Measured = Result<f64, String>;
 
 /// The point figures of one estimator that statistics are read from (of this run or of a
-/// baseline report).
+/// baseline report). None where undefined, including where a sum overflowed.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Figures {
-    pub variance: f64,
-    pub bias_sq: f64,
-    pub mse: f64,
+    pub variance: Option<f64>,
+    pub bias_sq: Option<f64>,
+    pub mse: Option<f64>,
     pub snr: Option<f64>,
     pub ess: Option<f64>,
     pub cosine_half: Option<f64>,
     pub episodes_for_snr: Option<u64>,
-    pub signal: f64,
+    pub signal: Option<f64>,
 }
 
 impl Figures {
@@ -101,19 +101,22 @@ impl Figures {
         }
     }
 
-    /// The statistic's point value, None where undefined.
+    /// The statistic's point value, None where undefined. A value that is not a finite number
+    /// (from a report made elsewhere) counts as undefined: it satisfies no bound.
     pub fn stat(&self, stat: Stat) -> Option<f64> {
-        match stat {
+        let signal = self.signal.filter(|s| *s > 0.0);
+        let value = match stat {
             Stat::Snr => self.snr,
             Stat::Ess => self.ess,
             Stat::CosineHalf => self.cosine_half,
             Stat::EpisodesForSnr => self.episodes_for_snr.map(|n| n as f64),
-            Stat::RelativeBias => (self.signal > 0.0).then(|| (self.bias_sq / self.signal).sqrt()),
-            Stat::RelativeVariance => (self.signal > 0.0).then(|| self.variance / self.signal),
-            Stat::Variance => Some(self.variance),
-            Stat::BiasSq => Some(self.bias_sq),
-            Stat::Mse => Some(self.mse),
-        }
+            Stat::RelativeBias => signal.zip(self.bias_sq).map(|(s, b)| (b / s).sqrt()),
+            Stat::RelativeVariance => signal.zip(self.variance).map(|(s, v)| v / s),
+            Stat::Variance => self.variance,
+            Stat::BiasSq => self.bias_sq,
+            Stat::Mse => self.mse,
+        };
+        value.filter(|x| x.is_finite())
     }
 }
 
@@ -121,8 +124,15 @@ impl Figures {
 pub fn point(report: &AuditReport, row: &EstimatorRow, stat: Stat) -> Measured {
     Figures::of(report, row).stat(stat).ok_or_else(|| {
         let why = match stat {
-            Stat::RelativeBias | Stat::RelativeVariance => "zero signal".to_string(),
-            Stat::CosineHalf => "the half-batch gradients are zero".to_string(),
+            Stat::RelativeBias | Stat::RelativeVariance if report.signal.is_none() => {
+                "the signal is undefined (the reference's sums overflowed)".to_string()
+            }
+            Stat::RelativeBias | Stat::RelativeVariance if row.bias_sq.is_some() => {
+                "zero signal".to_string()
+            }
+            Stat::CosineHalf if row.variance.is_some() => {
+                "the half-batch gradients are zero".to_string()
+            }
             _ => note_or(row, "see the audit notes"),
         };
         format!("{} is undefined: {why}", stat.key())
@@ -136,44 +146,62 @@ fn note_or(row: &EstimatorRow, fallback: &str) -> String {
         .unwrap_or_else(|| fallback.to_string())
 }
 
+/// The figures the pessimistic ends are computed from: the signal's lower bound, bias_sq's
+/// upper bound, the variance and the reference variance, or why one is undefined.
+fn interval_inputs(report: &AuditReport, row: &EstimatorRow) -> Result<[f64; 4], String> {
+    let s_lo = report.signal_interval.map(|i| i.low);
+    let b_hi = row.bias_sq_interval.map(|i| i.high);
+    match (s_lo, b_hi, row.variance, report.reference_variance) {
+        (Some(s), Some(b), Some(v), Some(r)) => Ok([s, b, v, r]),
+        _ => Err(note_or(row, "a figure it derives from is undefined")),
+    }
+}
+
 /// The pessimistic end of `stat`'s bootstrap interval for one estimator: the low end for a
 /// statistic where higher is better, the high end otherwise. Derived statistics combine the
 /// interval ends of signal and bias_sq in the direction that makes them worst.
 pub fn pessimistic(report: &AuditReport, row: &EstimatorRow, stat: Stat) -> Measured {
-    let (s_lo, b_hi) = (report.signal_interval.low, row.bias_sq_interval.high);
-    let n = report.input.episodes as f64;
-    let v = row.variance;
     let undefined = |why: &str| {
         Err(format!(
             "{} at its interval end is undefined: {why}",
             stat.key()
         ))
     };
-    match stat {
-        Stat::Snr if s_lo > 0.0 => Ok(s_lo / (b_hi + v)),
-        Stat::Snr => undefined("the signal's lower bound is 0"),
-        Stat::Ess if b_hi + v > 0.0 => Ok(n * report.reference_variance / (b_hi + v)),
-        Stat::Ess => undefined("zero error"),
+    let [s_lo, b_hi, v, v_ref] = match interval_inputs(report, row) {
+        Ok(x) => x,
+        Err(why) => return undefined(&why),
+    };
+    let n = report.input.episodes as f64;
+    let value = match stat {
+        Stat::Snr if s_lo > 0.0 => s_lo / (b_hi + v),
+        Stat::Snr => return undefined("the signal's lower bound is 0"),
+        Stat::Ess if b_hi + v > 0.0 => n * v_ref / (b_hi + v),
+        Stat::Ess => return undefined("bias_sq's upper bound and the variance are both 0"),
         Stat::RelativeBias | Stat::RelativeVariance if s_lo <= 0.0 => {
-            undefined("the signal's lower bound is 0")
+            return undefined("the signal's lower bound is 0");
         }
-        Stat::RelativeBias => Ok((b_hi / s_lo).sqrt()),
-        Stat::RelativeVariance => Ok(v / s_lo),
-        Stat::CosineHalf => row.cosine_half_interval.map_or_else(
-            || undefined("the half-batch gradients are zero"),
-            |i| Ok(i.low),
-        ),
+        Stat::RelativeBias => (b_hi / s_lo).sqrt(),
+        Stat::RelativeVariance => v / s_lo,
+        Stat::CosineHalf => match row.cosine_half_interval {
+            Some(i) => i.low,
+            None => return undefined("the half-batch gradients are zero"),
+        },
         Stat::EpisodesForSnr => {
             let room = s_lo / report.settings.target_snr - b_hi;
             if room > 0.0 {
-                Ok((n * v / room).ceil().max(1.0))
+                (n * v / room).ceil().max(1.0)
             } else {
-                undefined("at the interval ends the bias alone keeps snr below the target")
+                return undefined("at the interval ends the bias alone keeps snr below the target");
             }
         }
-        Stat::BiasSq => Ok(b_hi),
-        Stat::Variance => Ok(v),
-        Stat::Mse => Ok(b_hi + v),
+        Stat::BiasSq => b_hi,
+        Stat::Variance => v,
+        Stat::Mse => b_hi + v,
+    };
+    if value.is_finite() {
+        Ok(value)
+    } else {
+        undefined("it overflowed the range of f64")
     }
 }
 
@@ -222,8 +250,14 @@ pub fn evaluate(report: &AuditReport, rules: &[Rule]) -> Vec<Outcome> {
             };
             let (measured, margin, passed, detail) = match measured {
                 Ok(x) => {
-                    let margin = rule.bound.margin(x);
-                    (Some(x), Some(margin), margin >= 0.0, None)
+                    // Decided by comparing with the bound, not by the margin's sign: the
+                    // margin of two figures near 1e308 can overflow (and is then null).
+                    let passed = match rule.bound {
+                        Bound::Min(m) => x >= m,
+                        Bound::Max(m) => x <= m,
+                    };
+                    let margin = crate::report::finite(rule.bound.margin(x));
+                    (Some(x), margin, passed, None)
                 }
                 Err(why) if rule.allow_undefined => {
                     (None, None, true, Some(format!("{why} (allowed)")))

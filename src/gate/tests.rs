@@ -92,3 +92,30 @@ fn worse_means_lower_for_snr_and_higher_for_variance() {
     assert!(Stat::Snr.higher_is_better() && Stat::CosineHalf.higher_is_better());
     assert!(!Stat::Variance.higher_is_better() && !Stat::EpisodesForSnr.higher_is_better());
 }
+
+#[test]
+fn figures_that_are_not_finite_satisfy_no_rule() {
+    // A baseline written elsewhere may hold anything; an overflowed figure is undefined.
+    let f = Figures {
+        variance: Some(f64::INFINITY),
+        bias_sq: Some(f64::NAN),
+        mse: None,
+        snr: Some(f64::NAN),
+        ess: Some(f64::INFINITY),
+        cosine_half: None,
+        episodes_for_snr: None,
+        signal: None,
+    };
+    for stat in Stat::ALL {
+        assert_eq!(f.stat(stat), None, "{}", stat.key());
+    }
+    // An undefined signal leaves the relative figures undefined, whatever the bias.
+    let g = Figures {
+        variance: Some(1.0),
+        bias_sq: Some(0.0),
+        ..f
+    };
+    assert_eq!(g.stat(Stat::RelativeBias), None);
+    assert_eq!(g.stat(Stat::RelativeVariance), None);
+    assert_eq!(g.stat(Stat::Variance), Some(1.0));
+}

@@ -139,6 +139,14 @@ impl Family {
                 out[p] = g;
             }
         }
+        // A score beyond f64 (a sigma near 0, huge weights) would leave every figure undefined.
+        if out.iter().any(|x| !x.is_finite()) {
+            return Err(
+                "the policy's score is not a finite number: its parameters overflow f64 \
+                        here (a sigma near 0 or huge weights); check the policy file"
+                    .into(),
+            );
+        }
         Ok(())
     }
 

@@ -32,24 +32,25 @@ pub const COLUMNS: &[Column] = &[
     Column {
         title: "mse",
         key: "mse",
-        cell: |r| Cell::Num(Some(r.mse)),
+        cell: |r| Cell::Num(r.mse),
     },
     Column {
         title: "bias^2",
         key: "bias_sq",
         cell: |r| {
             // A bias that resampling noise could explain is marked with '?' (see the legend).
-            if r.bias_sq > 0.0 && !r.bias_detected {
-                Cell::Text(format!("{}?", super::table::num(r.bias_sq)))
-            } else {
-                Cell::Num(Some(r.bias_sq))
+            match r.bias_sq {
+                Some(b) if b > 0.0 && !r.bias_detected => {
+                    Cell::Text(format!("{}?", super::table::num(b)))
+                }
+                b => Cell::Num(b),
             }
         },
     },
     Column {
         title: "variance",
         key: "variance",
-        cell: |r| Cell::Num(Some(r.variance)),
+        cell: |r| Cell::Num(r.variance),
     },
     Column {
         title: "snr",
@@ -80,16 +81,16 @@ pub const COLUMNS: &[Column] = &[
     Column {
         title: "|g|",
         key: "gradient_norm",
-        cell: |r| Cell::Num(Some(r.gradient_norm)),
+        cell: |r| Cell::Num(r.gradient_norm),
     },
     Column {
         title: "|g| low",
         key: "gradient_norm_low",
-        cell: |r| Cell::Num(Some(r.gradient_norm_interval.low)),
+        cell: |r| Cell::Num(r.gradient_norm_interval.map(|i| i.low)),
     },
     Column {
         title: "|g| high",
         key: "gradient_norm_high",
-        cell: |r| Cell::Num(Some(r.gradient_norm_interval.high)),
+        cell: |r| Cell::Num(r.gradient_norm_interval.map(|i| i.high)),
     },
 ];

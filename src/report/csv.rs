@@ -1,5 +1,5 @@
 //! CSV rendering of an audit: one row per estimator, full precision, empty cells where a figure
-//! is undefined.
+//! is undefined (never NaN or inf).
 
 use super::AuditReport;
 use super::columns::{COLUMNS, Cell};
@@ -16,15 +16,14 @@ pub fn render(r: &AuditReport) -> String {
         let mut cells: Vec<String> = COLUMNS
             .iter()
             .map(|c| match (c.cell)(row) {
-                Cell::Num(Some(x)) => format!("{x}"),
-                Cell::Count(Some(n)) => n.to_string(),
-                Cell::Num(None) | Cell::Count(None) => String::new(),
+                Cell::Num(x) => super::finite_cell(x),
+                Cell::Count(n) => n.map_or(String::new(), |n| n.to_string()),
                 Cell::Text(t) => t,
             })
             .collect();
         // CSV keeps numbers machine-readable: the '?' marker becomes its own column.
         if let Some(i) = COLUMNS.iter().position(|c| c.key == "bias_sq") {
-            cells[i] = format!("{}", row.bias_sq);
+            cells[i] = super::finite_cell(row.bias_sq);
         }
         cells[0] = row.name.clone();
         cells.push(row.bias_detected.to_string());

@@ -10,14 +10,17 @@ fn measured(o: &Outcome) -> String {
     };
     match (o.measured, o.margin) {
         (Some(m), Some(g)) => format!("measured {}, bound {bound}, margin {}", num(m), num(g)),
+        (Some(m), None) => format!("measured {}, bound {bound}", num(m)),
         _ => o.detail.clone().unwrap_or_default(),
     }
 }
 
 fn regression_line(r: &RegressionOutcome) -> String {
-    let change = match r.worse_pct {
+    // A change from a baseline near 0 can overflow to an infinite percentage: never printed.
+    let change = match r.worse_pct.filter(|w| w.is_finite()) {
         Some(w) if w >= 0.0 => format!("{w:.1}% worse"),
         Some(w) => format!("{:.1}% better", -w),
+        None if r.worse_pct.is_some() => "the change overflowed the range of f64".to_string(),
         None => r.detail.clone().unwrap_or_default(),
     };
     format!(

@@ -1,5 +1,11 @@
 //! The report model: built once from the statistics, serialised as the public JSON wire format
 //! (schema `gradaudit.audit/1`), and only formatted by the exporters beside this file.
+//!
+//! Every figure of the model is a finite number or None. A sum that overflowed f64 reaches the
+//! statistics as inf or NaN, and clamps such as max(NaN, 0) = 0 can turn it into a plausible
+//! finite value; so a row's figures are taken only when everything they derive from is finite:
+//! its own gradient and spread (gradient, norm, variance), then the reference's (for bias_sq,
+//! mse, ess), then the signal (for snr, episodes_for_snr). Otherwise they are None with a note.
 
 pub mod columns;
 pub mod csv;
@@ -10,7 +16,7 @@ pub mod svg;
 pub mod sweep;
 pub mod table;
 
-use crate::stats::{EstimatorStats, Interval};
+use crate::stats::{EstimatorStats, Interval, Signal};
 use crate::warnings::Warnings;
 use serde::Serialize;
 
@@ -86,22 +92,68 @@ pub struct Skipped {
     pub reason: String,
 }
 
-/// One estimator's line of the report. Optional figures are null where undefined, and `notes`
-/// says why.
+/// A figure as reported: None unless it is a finite number. A sum that overflowed f64 (values
+/// near 1e308) or an undefined operation gives infinity or NaN, which no report shows.
+pub fn finite(x: f64) -> Option<f64> {
+    x.is_finite().then_some(x)
+}
+
+/// A CSV cell at full precision: empty where the figure is undefined or not finite.
+pub fn finite_cell(x: Option<f64>) -> String {
+    x.and_then(finite).map_or(String::new(), |v| format!("{v}"))
+}
+
+/// An interval as reported: None unless both ends are finite.
+pub fn finite_interval(i: Interval) -> Option<Interval> {
+    (i.low.is_finite() && i.high.is_finite()).then_some(i)
+}
+
+/// The reference's figures, which every estimator's bias, MSE and ratios are derived from.
+/// When the reference's own sums overflowed, `defined` is false and everything derived from it
+/// is undefined, whatever finite number a clamp such as max(NaN, 0) = 0 turned it into.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct ReferenceFigures {
+    pub defined: bool,
+    pub signal: Option<f64>,
+    pub signal_interval: Option<Interval>,
+    pub variance: Option<f64>,
+}
+
+impl ReferenceFigures {
+    pub fn of(reference: &EstimatorStats, signal: &Signal) -> ReferenceFigures {
+        // signal = max(0, ||g_ref||^2 - V_ref): both terms must be finite for it to mean anything.
+        let sq: f64 = reference.gradient.iter().map(|x| x * x).sum();
+        let defined = sq.is_finite()
+            && reference.variance.is_finite()
+            && signal.reference_variance.is_finite();
+        ReferenceFigures {
+            defined,
+            signal: defined.then_some(signal.signal).and_then(finite),
+            signal_interval: defined
+                .then_some(signal.signal_interval)
+                .and_then(finite_interval),
+            variance: defined.then_some(signal.reference_variance),
+        }
+    }
+}
+
+/// One estimator's line of the report. Optional figures are null where undefined (including
+/// where a sum overflowed f64, and every figure derived from such a one), and `notes` says why.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct EstimatorRow {
     pub name: String,
     pub reference: bool,
-    pub gradient: Vec<f64>,
-    pub gradient_norm: f64,
-    pub gradient_norm_interval: Interval,
-    pub variance: f64,
-    pub bias_sq: f64,
-    pub bias_sq_interval: Interval,
+    /// Null when a component overflowed f64.
+    pub gradient: Option<Vec<f64>>,
+    pub gradient_norm: Option<f64>,
+    pub gradient_norm_interval: Option<Interval>,
+    pub variance: Option<f64>,
+    pub bias_sq: Option<f64>,
+    pub bias_sq_interval: Option<Interval>,
     pub bias_z: Option<f64>,
     pub bias_detected: bool,
-    pub bias_norm_interval: Interval,
-    pub mse: f64,
+    pub bias_norm_interval: Option<Interval>,
+    pub mse: Option<f64>,
     pub snr: Option<f64>,
     pub ess: Option<f64>,
     pub cosine_half: Option<f64>,
@@ -111,87 +163,176 @@ pub struct EstimatorRow {
     pub notes: Vec<String>,
 }
 
+/// Notes of the statistics that an overflow makes wrong ("zero error", "zero signal", ...):
+/// they are replaced by the overflow note.
+fn superseded(note: &str, own: bool, bias: bool, signal: bool) -> bool {
+    let starts = |p: &str| note.starts_with(p);
+    (!own && starts("cosine_half"))
+        || (!bias && (starts("snr") || starts("episodes_for_snr") || starts("bias-limited")))
+        || (!signal && (starts("snr undefined") || starts("episodes_for_snr")))
+}
+
+/// Why figures are undefined after an overflow: the estimator's own figures, the reference's,
+/// or their difference (in that order of precedence); None when nothing overflowed.
+fn overflow_note(own: bool, reference: bool, bias: bool) -> Option<&'static str> {
+    if !own {
+        Some(
+            "every figure undefined: this estimator's gradient or its resampling spread \
+             overflowed the range of f64 (about 1.8e308); rescale the rewards or the scores",
+        )
+    } else if !reference {
+        Some(
+            "bias_sq, mse, snr, ess and episodes_for_snr undefined: the reference's gradient \
+             or its resampling spread overflowed the range of f64; rescale the rewards or the \
+             scores",
+        )
+    } else if !bias {
+        Some(
+            "bias_sq, mse, snr, ess and episodes_for_snr undefined: the difference from the \
+             reference overflowed the range of f64; rescale the rewards or the scores",
+        )
+    } else {
+        None
+    }
+}
+
 impl EstimatorRow {
-    pub fn new(name: String, reference: bool, s: EstimatorStats) -> EstimatorRow {
-        let mut notes = s.notes;
-        let figures = [s.gradient_norm, s.variance, s.bias_sq, s.mse];
-        if figures.iter().chain(&s.gradient).any(|x| !x.is_finite()) {
+    /// The row of estimator `s`; `r` is the reference's figures (see [`ReferenceFigures`]).
+    pub fn new(name: String, reference: bool, s: EstimatorStats, r: &ReferenceFigures) -> Self {
+        // Its own figures: the gradient and its resampling spread.
+        let own = s.gradient.iter().all(|x| x.is_finite())
+            && s.gradient_norm.is_finite()
+            && s.variance.is_finite()
+            && finite_interval(s.gradient_norm_interval).is_some();
+        // The bias needs its own figures, the reference's and a finite paired difference.
+        let bias = own
+            && r.defined
+            && s.bias_sq.is_finite()
+            && s.mse.is_finite()
+            && finite_interval(s.bias_sq_interval).is_some()
+            && finite_interval(s.bias_norm_interval).is_some();
+        let signal = bias && r.signal.is_some();
+        let mut notes: Vec<String> = s
+            .notes
+            .into_iter()
+            .filter(|n| !superseded(n, own, bias, signal))
+            .collect();
+        notes.extend(overflow_note(own, r.defined, bias).map(String::from));
+        // N V / (signal / target - bias^2) beyond u64 saturates to u64::MAX in the statistics:
+        // an overflow too, not a batch size.
+        let planned = s.episodes_for_snr.filter(|_| signal);
+        let episodes_for_snr = planned.filter(|n| *n < u64::MAX);
+        if planned.is_some() && episodes_for_snr.is_none() {
             notes.push(
-                "some figures overflowed the range of f64 and are shown as null; rescale the \
-                 rewards"
+                "episodes_for_snr undefined: the batch size it plans for is beyond 1.8e19 \
+                 episodes (the signal is tiny next to the variance)"
                     .into(),
             );
         }
+        let when = |ok: bool, x: f64| ok.then_some(x).and_then(finite);
         EstimatorRow {
             name,
             reference,
-            gradient: s.gradient,
-            gradient_norm: s.gradient_norm,
-            gradient_norm_interval: s.gradient_norm_interval,
-            variance: s.variance,
-            bias_sq: s.bias_sq,
-            bias_sq_interval: s.bias_sq_interval,
-            bias_z: s.bias_z.filter(|x| x.is_finite()),
-            bias_detected: s.bias_detected,
-            bias_norm_interval: s.bias_norm_interval,
-            mse: s.mse,
-            snr: s.snr.filter(|x| x.is_finite()),
-            ess: s.ess.filter(|x| x.is_finite()),
-            cosine_half: s.cosine_half,
-            cosine_half_interval: s.cosine_half_interval,
-            episodes_for_snr: s.episodes_for_snr,
-            bias_limited: s.bias_limited,
+            gradient: own.then_some(s.gradient),
+            gradient_norm: when(own, s.gradient_norm),
+            gradient_norm_interval: own.then_some(s.gradient_norm_interval),
+            variance: when(own, s.variance),
+            bias_sq: when(bias, s.bias_sq),
+            bias_sq_interval: bias.then_some(s.bias_sq_interval),
+            bias_z: s.bias_z.filter(|x| bias && x.is_finite()),
+            bias_detected: bias && s.bias_detected,
+            bias_norm_interval: bias.then_some(s.bias_norm_interval),
+            mse: when(bias, s.mse),
+            snr: s.snr.filter(|x| signal && x.is_finite()),
+            ess: s
+                .ess
+                .filter(|x| bias && r.variance.is_some() && x.is_finite()),
+            cosine_half: s.cosine_half.filter(|x| own && x.is_finite()),
+            cosine_half_interval: s
+                .cosine_half_interval
+                .filter(|_| own)
+                .and_then(finite_interval),
+            episodes_for_snr,
+            bias_limited: signal && s.bias_limited,
             notes,
         }
     }
 }
 
+/// Orders rows by MSE, lowest first; rows whose MSE is undefined go last; ties by name.
+pub fn sort_rows(rows: &mut [EstimatorRow]) {
+    rows.sort_by(|a, b| {
+        let key = |r: &EstimatorRow| (r.mse.is_none(), r.mse.unwrap_or(0.0));
+        let (ka, kb) = (key(a), key(b));
+        ka.0.cmp(&kb.0)
+            .then(ka.1.total_cmp(&kb.1))
+            .then_with(|| a.name.cmp(&b.name))
+    });
+}
+
 /// The one-line answer: which estimator has the lowest MSE and what limits it.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct Verdict {
-    pub best: String,
-    /// `bias` or `variance`: the larger part of the best estimator's MSE.
-    pub dominated_by: &'static str,
+    /// Null when no estimator has a defined MSE.
+    pub best: Option<String>,
+    /// `bias` or `variance`: the larger part of the best estimator's MSE; null when the best
+    /// MSE is zero or undefined.
+    pub dominated_by: Option<&'static str>,
     pub text: String,
 }
 
 impl Verdict {
-    /// `rows` sorted by MSE, lowest first.
-    pub fn from_rows(rows: &[EstimatorRow], signal: f64) -> Verdict {
-        let best = &rows[0];
-        let dominated_by = if best.bias_sq > best.variance {
-            "bias"
-        } else {
-            "variance"
+    /// `rows` sorted by [`sort_rows`]; `signal` is the report's.
+    pub fn from_rows(rows: &[EstimatorRow], signal: Option<f64>) -> Verdict {
+        let best = rows.first().and_then(|b| {
+            let (mse, bias_sq, variance) = (b.mse?, b.bias_sq?, b.variance?);
+            Some((b, mse, bias_sq, variance))
+        });
+        let Some((best, mse, bias_sq, variance)) = best else {
+            return Verdict {
+                best: None,
+                dominated_by: None,
+                text: "no estimator has a defined MSE: the log's sums overflowed the range of \
+                       f64 (see the notes); rescale the rewards or the scores"
+                    .into(),
+            };
         };
-        let share = if best.mse > 0.0 {
-            100.0
-                * if dominated_by == "bias" {
-                    best.bias_sq
-                } else {
-                    best.variance
-                }
-                / best.mse
+        let (dominated_by, mut text) = if mse > 0.0 {
+            let (part, share) = if bias_sq > variance {
+                ("bias", bias_sq / mse)
+            } else {
+                ("variance", variance / mse)
+            };
+            let pct = 100.0 * share;
+            let text = format!(
+                "lowest MSE: {} ({part}-dominated, {pct:.0}% of its MSE)",
+                best.name
+            );
+            (Some(part), text)
         } else {
-            0.0
+            let text = format!(
+                "lowest MSE: {} (MSE 0: its gradient equals the reference's in every resample)",
+                best.name
+            );
+            (None, text)
         };
-        let mut text = format!(
-            "lowest MSE: {} ({}-dominated, {share:.0}% of its MSE)",
-            best.name, dominated_by
-        );
-        match (best.snr, signal > 0.0) {
+        match (best.snr, signal) {
             (Some(snr), _) => text.push_str(&format!(
                 "; its SNR at this batch size is {}",
                 table::num(snr)
             )),
-            (None, false) => text.push_str(
+            (None, Some(s)) if s <= 0.0 => text.push_str(
                 "; but the reference gradient is within its own noise, so no estimator's \
                  direction can be trusted at this batch size",
+            ),
+            (None, None) => text.push_str(
+                "; the reference's signal is undefined (its sums overflowed), so no SNR can be \
+                 given",
             ),
             _ => {}
         }
         Verdict {
-            best: best.name.clone(),
+            best: Some(best.name.clone()),
             dominated_by,
             text,
         }
@@ -203,10 +344,11 @@ pub struct AuditReport {
     pub tool: Tool,
     pub input: InputSummary,
     pub settings: Settings,
-    /// max(0, ||g_ref||^2 - V_ref), the squared norm of the reference gradient, noise removed.
-    pub signal: f64,
-    pub signal_interval: Interval,
-    pub reference_variance: f64,
+    /// max(0, ||g_ref||^2 - V_ref), the squared norm of the reference gradient, noise removed;
+    /// null when the reference's figures overflowed.
+    pub signal: Option<f64>,
+    pub signal_interval: Option<Interval>,
+    pub reference_variance: Option<f64>,
     /// Sorted by MSE, lowest first.
     pub estimators: Vec<EstimatorRow>,
     pub skipped: Vec<Skipped>,

@@ -19,10 +19,15 @@ const HEADERS: [&str; 11] = [
     "",
 ];
 
+/// A figure for people: a dash where undefined or not finite.
+fn figure(x: Option<f64>) -> String {
+    x.filter(|v| v.is_finite()).map_or("-".into(), num)
+}
+
 fn cells(r: &SweepReport, i: usize, p: &SweepPoint) -> Vec<String> {
-    let mark = if i == r.choice.recommended {
+    let mark = if r.choice.recommended == Some(i) {
         "<- recommended"
-    } else if i == r.choice.best {
+    } else if r.choice.best == Some(i) {
         "<- min mse"
     } else if r.choice.band.contains(&i) {
         "within 1 se"
@@ -32,17 +37,16 @@ fn cells(r: &SweepReport, i: usize, p: &SweepPoint) -> Vec<String> {
     vec![
         p.label.clone(),
         p.estimator.clone(),
-        if p.bias_sq > 0.0 && !p.bias_detected {
-            format!("{}?", num(p.bias_sq))
-        } else {
-            num(p.bias_sq)
+        match p.bias_sq {
+            Some(b) if b > 0.0 && !p.bias_detected => format!("{}?", num(b)),
+            b => figure(b),
         },
-        num(p.variance),
-        num(p.mse),
-        p.mse_interval.map_or("-".into(), |i| num(i.low)),
-        p.mse_interval.map_or("-".into(), |i| num(i.high)),
-        p.snr.map_or("-".into(), num),
-        p.ess.map_or("-".into(), num),
+        figure(p.variance),
+        figure(p.mse),
+        figure(p.mse_interval.map(|i| i.low)),
+        figure(p.mse_interval.map(|i| i.high)),
+        figure(p.snr),
+        figure(p.ess),
         if p.bias_limited {
             "bias-limited".into()
         } else {
@@ -87,7 +91,10 @@ pub fn render_table(r: &SweepReport) -> String {
     out.push_str(&t.to_string());
     out.push('\n');
     out.push_str(&chart(r));
-    if r.points.iter().any(|p| p.bias_sq > 0.0 && !p.bias_detected) {
+    if r.points
+        .iter()
+        .any(|p| p.bias_sq.is_some_and(|b| b > 0.0) && !p.bias_detected)
+    {
         out.push_str("?: bias^2 within resampling noise (z < 2): it may be zero\n");
     }
     out.push_str(&format!("choice: {}\n", r.choice.text));
@@ -95,20 +102,25 @@ pub fn render_table(r: &SweepReport) -> String {
 }
 
 /// A small text chart, log10 scale: b = bias^2, v = variance, m = mse (m wins where marks
-/// coincide), * the recommended point's mse. Zero values sit on the bottom row.
+/// coincide), * the recommended point's mse. Zero values sit on the bottom row; undefined ones
+/// are not drawn.
 pub fn chart(r: &SweepReport) -> String {
     const ROWS: usize = 10;
-    let series: Vec<[f64; 3]> = r
+    let series: Vec<[Option<f64>; 3]> = r
         .points
         .iter()
-        .map(|p| [p.bias_sq, p.variance, p.mse])
+        .map(|p| [p.bias_sq, p.variance, p.mse].map(|x| x.filter(|v| v.is_finite())))
         .collect();
     let positive: Vec<f64> = series
         .iter()
         .flatten()
+        .flatten()
         .copied()
         .filter(|x| *x > 0.0)
         .collect();
+    if series.iter().flatten().all(Option::is_none) {
+        return String::from("(chart: every figure is undefined)\n");
+    }
     if positive.is_empty() {
         return String::from("(chart: every figure is zero)\n");
     }
@@ -135,11 +147,16 @@ pub fn chart(r: &SweepReport) -> String {
     let mut grid = vec![vec![' '; series.len() * width]; ROWS + 1];
     for (i, s) in series.iter().enumerate() {
         for (j, mark) in [(0, 'b'), (1, 'v'), (2, 'm')] {
-            grid[row_of(s[j])][i * width + 1] = mark;
+            if let Some(x) = s[j] {
+                grid[row_of(x)][i * width + 1] = mark;
+            }
         }
     }
-    let rec = r.choice.recommended;
-    grid[row_of(series[rec][2])][rec * width + 1] = '*';
+    if let Some(rec) = r.choice.recommended
+        && let Some(m) = series[rec][2]
+    {
+        grid[row_of(m)][rec * width + 1] = '*';
+    }
     let mut out = String::new();
     for (i, row) in grid.iter().enumerate() {
         let label = if i == 0 {
@@ -198,17 +215,17 @@ pub fn render_csv(r: &SweepReport) -> String {
         "recommended",
     ])
     .expect("writing to memory");
-    let opt = |x: Option<f64>| x.map_or(String::new(), |v| v.to_string());
+    let opt = super::finite_cell;
     for (i, p) in r.points.iter().enumerate() {
         w.write_record([
             p.label.clone(),
             opt(p.value),
             p.estimator.clone(),
             p.gamma.to_string(),
-            p.bias_sq.to_string(),
+            opt(p.bias_sq),
             p.bias_detected.to_string(),
-            p.variance.to_string(),
-            p.mse.to_string(),
+            opt(p.variance),
+            opt(p.mse),
             opt(p.mse_se),
             opt(p.mse_interval.map(|i| i.low)),
             opt(p.mse_interval.map(|i| i.high)),
@@ -216,9 +233,9 @@ pub fn render_csv(r: &SweepReport) -> String {
             opt(p.ess),
             p.episodes_for_snr.map_or(String::new(), |n| n.to_string()),
             p.bias_limited.to_string(),
-            (i == r.choice.best).to_string(),
+            (r.choice.best == Some(i)).to_string(),
             r.choice.band.contains(&i).to_string(),
-            (i == r.choice.recommended).to_string(),
+            (r.choice.recommended == Some(i)).to_string(),
         ])
         .expect("writing to memory");
     }

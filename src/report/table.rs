@@ -24,9 +24,9 @@ pub fn num(x: f64) -> String {
 /// A cell for people; undefined figures show as a dash (their reason is in the notes).
 pub fn cell_text(cell: Cell) -> String {
     match cell {
-        Cell::Num(Some(x)) => num(x),
+        Cell::Num(Some(x)) if x.is_finite() => num(x),
         Cell::Count(Some(n)) => n.to_string(),
-        Cell::Num(None) | Cell::Count(None) => "-".into(),
+        Cell::Num(_) | Cell::Count(None) => "-".into(),
         Cell::Text(t) => t,
     }
 }
@@ -97,7 +97,7 @@ pub fn bias_legend(r: &AuditReport) -> Option<String> {
     let unsure: Vec<String> = r
         .estimators
         .iter()
-        .filter(|e| e.bias_sq > 0.0 && !e.bias_detected)
+        .filter(|e| e.bias_sq.is_some_and(|b| b > 0.0) && !e.bias_detected)
         .map(|e| format!("{} {:.1}", e.name, e.bias_z.unwrap_or(0.0)))
         .collect();
     (!unsure.is_empty()).then(|| {
@@ -111,7 +111,11 @@ pub fn bias_legend(r: &AuditReport) -> Option<String> {
 
 /// One line on the critics' quality, when there is a critic.
 pub fn critic_line(c: &crate::critic::CriticQuality) -> Option<String> {
-    let ev = |x: Option<f64>| x.map_or("undefined".to_string(), |v| format!("{v:.3}"));
+    // An explained variance of -inf (a critic whose errors overflowed) is undefined too.
+    let ev = |x: Option<f64>| {
+        x.filter(|v| v.is_finite())
+            .map_or("undefined".to_string(), |v| format!("{v:.3}"))
+    };
     match (c.recorded_explained_variance, c.fitted_folds) {
         (None, None) => None,
         (rec, None) => Some(format!(
@@ -124,7 +128,8 @@ pub fn critic_line(c: &crate::critic::CriticQuality) -> Option<String> {
             c.fitted_features.unwrap_or(0),
             ev(c.fitted_explained_variance),
             rec.map_or(String::new(), |r| format!(
-                " (the recorded critic, ignored: {r:.3})"
+                " (the recorded critic, ignored: {})",
+                ev(Some(r))
             ))
         )),
     }

@@ -57,13 +57,13 @@ fn end_points_equal_the_audits_gae_1_and_td() {
     ] {
         let r = row(name);
         assert!(
-            close(point.variance, r.variance),
+            close(point.variance.unwrap(), r.variance.unwrap()),
             "{name}: {} vs {}",
-            point.variance,
-            r.variance
+            point.variance.unwrap(),
+            r.variance.unwrap()
         );
-        assert!(close(point.bias_sq, r.bias_sq), "{name}");
-        assert!(close(point.mse, r.mse), "{name}");
+        assert!(close(point.bias_sq.unwrap(), r.bias_sq.unwrap()), "{name}");
+        assert!(close(point.mse.unwrap(), r.mse.unwrap()), "{name}");
     }
 }
 
@@ -82,8 +82,8 @@ fn bias_falls_and_variance_rises_with_lambda() {
     };
     let text = lq.log(1500, 0.6, 17);
     let s = sweep_at(&text, Over::Lambda, "0,0.25,0.5,0.75,0.9,1", 600, 1.0);
-    let bias: Vec<f64> = s.points.iter().map(|p| p.bias_sq).collect();
-    let var: Vec<f64> = s.points.iter().map(|p| p.variance).collect();
+    let bias: Vec<f64> = s.points.iter().map(|p| p.bias_sq.unwrap()).collect();
+    let var: Vec<f64> = s.points.iter().map(|p| p.variance.unwrap()).collect();
     for w in bias.windows(2).take(4) {
         assert!(w[0] > w[1], "bias^2 should fall with lambda: {bias:?}");
     }
@@ -94,15 +94,15 @@ fn bias_falls_and_variance_rises_with_lambda() {
         s.points[0].bias_detected,
         "a 40% critic error is a detectable bias"
     );
-    let best = s.choice.best;
+    let best = s.choice.best.unwrap();
     assert!(
         best > 0 && best < s.points.len() - 1,
         "interior optimum, got {best}: {:?}",
-        s.points.iter().map(|p| p.mse).collect::<Vec<_>>()
+        s.points.iter().map(|p| p.mse.unwrap()).collect::<Vec<_>>()
     );
-    assert!(s.choice.band.contains(&s.choice.recommended));
+    assert!(s.choice.band.contains(&s.choice.recommended.unwrap()));
     assert!(
-        s.choice.recommended >= best,
+        s.choice.recommended.unwrap() >= best,
         "the recommendation leans to larger lambda"
     );
 }
@@ -119,8 +119,8 @@ fn gamma_sweep_keeps_an_undiscounted_reference() {
     let text = lq.log(400, 1.0, 3);
     let s = sweep(&text, Over::Gamma, "0.5,0.9,1", 300);
     let last = s.points.last().unwrap();
-    assert_eq!(last.bias_sq, 0.0);
-    assert!(s.points[0].bias_sq > 0.0);
+    assert_eq!(last.bias_sq.unwrap(), 0.0);
+    assert!(s.points[0].bias_sq.unwrap() > 0.0);
     assert_eq!(s.settings.reference, "rtg");
 }
 
@@ -183,4 +183,81 @@ fn svg_is_well_formed_and_complete() {
         circles > 3 * 3,
         "points of three series plus the marker, found {circles}"
     );
+}
+
+fn point(label: &str, value: f64, mse: Option<f64>, bias_sq: Option<f64>) -> SweepPoint {
+    SweepPoint {
+        label: label.into(),
+        value: Some(value),
+        estimator: format!("gae:{label}"),
+        gamma: 0.99,
+        bias_sq,
+        bias_detected: false,
+        variance: mse.zip(bias_sq).map(|(m, b)| m - b),
+        mse,
+        mse_se: mse.map(|_| 0.1),
+        mse_interval: None,
+        snr: None,
+        ess: None,
+        episodes_for_snr: None,
+        bias_limited: false,
+        notes: vec![],
+    }
+}
+
+#[test]
+fn sweep_overflowed_sums_do_not_panic() {
+    // Every point undefined (sums beyond 1e308): no choice, instead of a panic in the band.
+    let none = [point("0", 0.0, None, None), point("1", 1.0, None, None)];
+    let c = choose(&none, Over::Lambda);
+    assert_eq!((c.best, c.recommended), (None, None));
+    assert!(c.band.is_empty());
+    assert!(
+        c.text.contains("no grid point has a defined MSE"),
+        "{}",
+        c.text
+    );
+    // Undefined points take no part; an MSE near f64::MAX whose band limit overflows to
+    // infinity still gives a choice among the defined points.
+    let mut some = [
+        point("0", 0.0, None, None),
+        point("0.5", 0.5, Some(f64::MAX), Some(1.0)),
+        point("1", 1.0, Some(f64::MAX), Some(0.5)),
+    ];
+    some[1].mse_se = Some(f64::MAX); // limit = MAX + MAX = inf
+    let c = choose(&some, Over::Lambda);
+    assert_eq!(c.band, vec![1, 2]);
+    assert_eq!(c.recommended, Some(2));
+    assert!(
+        c.text.contains("1 point(s) have no defined MSE"),
+        "{}",
+        c.text
+    );
+}
+
+#[test]
+fn grid_step_too_small_for_the_size_limit() {
+    let family = Estimator::RtgDiscounted;
+    for spec in ["0:1:1e-300", "0:1:5e-324", "0:1:0.00001"] {
+        let e = parse_grid(Over::Lambda, spec, family, 0.99).unwrap_err();
+        assert!(
+            e.contains("too small") && e.contains("at most 10000"),
+            "{e}"
+        );
+    }
+    // The quoted smallest step is enough: 1.001e-4 gives 9991 points.
+    assert_eq!(
+        parse_grid(Over::Lambda, "0:1:1.001e-4", family, 0.99)
+            .unwrap()
+            .len(),
+        9991
+    );
+}
+
+#[test]
+fn clamping_at_zero_keeps_an_overflow_visible() {
+    assert_eq!(at_least_0(-2.0), 0.0);
+    assert_eq!(at_least_0(3.0), 3.0);
+    assert!(at_least_0(f64::NAN).is_nan());
+    assert_eq!(at_least_0(f64::INFINITY), f64::INFINITY);
 }

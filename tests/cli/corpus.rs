@@ -12,7 +12,8 @@ use crate::util::{demo, run};
 const GATE_BASELINE: &str =
     "gate LOG --estimators rtg,total --resamples 300 --splits 20 --baseline";
 
-/// (file, failure class, command, exit code, fragments the message must contain)
+/// (file, failure class, command and options, exit code, fragments the message must contain);
+/// a file accepted with exit 0 must give output without NaN or inf.
 const CASES: &[(&str, &str, &str, i32, &[&str])] = &[
     (
         "malformed_number.csv",
@@ -186,6 +187,37 @@ const CASES: &[(&str, &str, &str, i32, &[&str])] = &[
         &[],
     ),
     ("bom.csv", "BOM (accepted)", "inspect", 0, &[]),
+    // Figures that overflow f64: a report of undefined figures, never NaN, inf or a panic.
+    ("overflow_sums.csv", "sums beyond 1e308", "audit", 0, &[]),
+    (
+        "overflow_sums.csv",
+        "sums beyond 1e308, swept",
+        "sweep --over gamma",
+        0,
+        &[],
+    ),
+    ("overflow_values.csv", "values of +-1e308", "audit", 0, &[]),
+    (
+        "overflow_values.csv",
+        "values of +-1e308, swept",
+        "sweep --over lambda --format json",
+        0,
+        &[],
+    ),
+    (
+        "astronomical_scores.csv",
+        "scores near 1e200",
+        "audit",
+        0,
+        &[],
+    ),
+    (
+        "astronomical_rewards.csv",
+        "rewards near 1e152",
+        "audit --format csv",
+        0,
+        &[],
+    ),
     ("crlf.csv", "CRLF (accepted)", "inspect", 0, &[]),
 ];
 
@@ -203,11 +235,17 @@ fn every_corpus_file_behaves_as_its_class_says() {
     for (file, class, command, code, wants) in CASES {
         let path = format!("{dir}/{file}");
         let log = demo("docking_rover.csv");
+        // `LOG` stands for the demo log and the file goes last (it is an option's value);
+        // otherwise the file is the command's first argument, before its options.
         let mut args: Vec<&str> = command
-            .split(' ')
+            .split_whitespace()
             .map(|w| if w == "LOG" { log.as_str() } else { w })
             .collect();
-        args.push(&path);
+        if command.contains("LOG") {
+            args.push(&path);
+        } else {
+            args.insert(1, &path);
+        }
         let (got, out, err) = run(&args);
         assert_eq!(got, *code, "{class} ({file}): {err}{out}");
         if *code == 2 {
@@ -226,6 +264,12 @@ fn every_corpus_file_behaves_as_its_class_says() {
             !err.contains("panicked") && !err.contains("backtrace"),
             "{class}: {err}"
         );
+        if *code == 0 {
+            assert!(
+                !crate::hardening_numeric::prints_non_finite(&out),
+                "{class}: a NaN or inf in the output:\n{out}"
+            );
+        }
         assert!(
             err.lines().count() <= 3,
             "{class}: one short message: {err}"

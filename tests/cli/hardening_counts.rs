@@ -112,7 +112,7 @@ fn grid_with_a_tiny_step_is_refused_not_wrapped() {
             "--grid",
             "0:1:1e-320",
         ],
-        &["more than 10000 points"],
+        &["too small", "at most 10000"],
     );
 }
 

@@ -9,6 +9,7 @@ mod fuzz_inputs;
 mod gate;
 mod hardening_counts;
 mod hardening_files;
+mod hardening_numeric;
 mod inspect;
 mod policy;
 mod sweep;
