@@ -108,6 +108,20 @@ impl Plan {
         Some((mean[start + 2 * k], mean[start + 2 * k + 1]))
     }
 
+    /// The columns of a mean row that [`Plan::gradient`] reads for estimator k: its own block
+    /// for a per-episode estimator, the auxiliary block for a batch-dependent one.
+    pub fn columns(&self, k: usize) -> std::ops::Range<usize> {
+        match self.offsets[k] {
+            Some(off) => off..off + self.d,
+            None => {
+                let aux = self
+                    .aux
+                    .expect("batch-dependent estimators have the auxiliary block");
+                aux..aux + 2 * self.d + 3
+            }
+        }
+    }
+
     /// Length of one contribution row.
     pub fn width(&self) -> usize {
         self.width

@@ -7,6 +7,7 @@ use ndarray::{Array2, ArrayView2, Axis, s};
 use rand::{RngExt, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use rayon::prelude::*;
+use std::ops::Range;
 
 /// Replicates per matrix product: large enough to amortise packing, small enough to keep the
 /// weight block (BLOCK x N) in cache-friendly size.
@@ -88,6 +89,64 @@ where
     out
 }
 
+/// Gradients of weighted mean rows, computed without holding the mean rows: for each block of
+/// BLOCK rows, the weighted means of only the columns `cols` are formed (one matrix product),
+/// and `grad(mean_row, out_row)` turns each into a d-vector, row r of the result. `grad` may
+/// read only the columns `cols` of its mean row (the others hold stale values). Returns the
+/// gradients (rows x d) and how many calls of `grad` returned true.
+pub fn weighted_gradients<W, G>(
+    contrib: ArrayView2<f64>,
+    rows: usize,
+    cols: Range<usize>,
+    d: usize,
+    weights: W,
+    grad: G,
+) -> (Array2<f64>, usize)
+where
+    W: Fn(usize, &mut [f64]) + Sync,
+    G: Fn(&[f64], &mut [f64]) -> bool + Sync,
+{
+    let (n, width) = contrib.dim();
+    let sub = contrib.slice(s![.., cols.clone()]);
+    let mut out = Array2::<f64>::zeros((rows, d));
+    let flagged = out
+        .axis_chunks_iter_mut(Axis(0), BLOCK)
+        .into_par_iter()
+        .enumerate()
+        .map_init(
+            || {
+                (
+                    Array2::<f64>::zeros((BLOCK, n)),
+                    Array2::<f64>::zeros((BLOCK, width)),
+                )
+            },
+            |(w, mean), (block, mut chunk)| {
+                let m = chunk.nrows();
+                for j in 0..m {
+                    let row = w.row_mut(j).into_slice().expect("rows are contiguous");
+                    weights(block * BLOCK + j, row);
+                }
+                let w = w.slice(s![..m, ..]);
+                let mut target = mean.slice_mut(s![..m, cols.clone()]);
+                ndarray::linalg::general_mat_mul(1.0, &w, &sub, 0.0, &mut target);
+                let mut flagged = 0;
+                for j in 0..m {
+                    let total: f64 = w.slice(s![j, ..]).sum();
+                    let mut row = mean.row_mut(j);
+                    if total > 0.0 {
+                        row.slice_mut(s![cols.clone()]).mapv_inplace(|x| x / total);
+                    }
+                    let row = row.into_slice().expect("rows are contiguous");
+                    let o = chunk.row_mut(j).into_slice().expect("rows are contiguous");
+                    flagged += usize::from(grad(row, o));
+                }
+                flagged
+            },
+        )
+        .sum();
+    (out, flagged)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -110,6 +169,28 @@ mod tests {
         half_split(1, 0, &mut f, &mut s);
         assert_eq!(f.iter().sum::<f64>(), 5.0);
         assert!(f.iter().zip(&s).all(|(a, b)| a + b == 1.0));
+    }
+
+    #[test]
+    fn weighted_gradients_match_the_gradients_of_weighted_means() {
+        let c = Array2::from_shape_fn((9, 5), |(i, j)| ((i * 5 + j) as f64 * 0.37).sin());
+        let weights = |r: usize, w: &mut [f64]| bootstrap_counts(2, r as u64, w);
+        let full = weighted_means(c.view(), 70, weights);
+        // A "gradient" of columns 1..4: their values doubled, flagged when the first is > 0.
+        let (got, flagged) = weighted_gradients(c.view(), 70, 1..4, 3, weights, |m, o| {
+            for j in 0..3 {
+                o[j] = 2.0 * m[1 + j];
+            }
+            m[1] > 0.0
+        });
+        for r in 0..70 {
+            for j in 0..3 {
+                assert_eq!(got[[r, j]], 2.0 * full[[r, 1 + j]]);
+            }
+        }
+        let want = (0..70).filter(|&r| full[[r, 1]] > 0.0).count();
+        assert_eq!(flagged, want);
+        assert!(flagged > 0 && flagged < 70);
     }
 
     #[test]
