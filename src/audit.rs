@@ -402,7 +402,8 @@ impl Resampler<'_> {
         W: Fn(usize, &mut [f64]) + Sync,
     {
         let grad = |mean: &[f64], out: &mut [f64]| {
-            self.plan.gradient(k, mean, out) == crate::contrib::GradNote::ConstantReturns
+            self.plan.gradient_from_columns(k, mean, out)
+                == crate::contrib::GradNote::ConstantReturns
         };
         let cols = self.plan.columns(k);
         resample::weighted_gradients(self.contrib, rows, cols, self.plan.d, weights, grad)

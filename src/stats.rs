@@ -794,4 +794,67 @@ mod tests {
                 .any(|n| n.contains("episodes_for_snr"))
         );
     }
+
+    fn wavy(b_count: usize, d: usize, phase: f64) -> Array2<f64> {
+        Array2::from_shape_fn((b_count, d), |(b, j)| {
+            ((b * 7 + j * 13) as f64 * 0.37 + phase).sin() * (1.0 + j as f64 * 0.01)
+        })
+    }
+
+    // tr(S^2) = sum_ij S_ij^2 with S_ij = sum_b (x_bi - m_i)(x_bj - m_j) / (B - 1): the
+    // definition, summed directly, against both Gram forms (d < B and d > B), each wider than
+    // one column chunk.
+    #[test]
+    fn covariance_frobenius_matches_its_definition() {
+        for (b_count, d) in [(300, 70), (90, 150)] {
+            let x = wavy(b_count, d, 0.3);
+            let mean: Vec<f64> = (0..d).map(|j| x.column(j).sum() / b_count as f64).collect();
+            let mut want = 0.0;
+            for i in 0..d {
+                for j in 0..d {
+                    let c: f64 = (0..b_count)
+                        .map(|b| (x[[b, i]] - mean[i]) * (x[[b, j]] - mean[j]))
+                        .sum::<f64>()
+                        / (b_count as f64 - 1.0);
+                    want += c * c;
+                }
+            }
+            let got = covariance_frobenius_sq(&mut x.clone(), &mean);
+            assert!(
+                (got / want - 1.0).abs() < 1e-12,
+                "B {b_count} d {d}: {got} vs {want}"
+            );
+        }
+    }
+
+    // Every figure is bit-identical with 1, 2 and 3 threads, for scores wider than one Gram
+    // chunk, with d both below and above B.
+    #[test]
+    fn wide_statistics_do_not_depend_on_the_thread_count() {
+        for (b_count, d) in [(300, 70), (90, 150)] {
+            let plan = Plan::new(
+                vec![Estimator::Rtg, Estimator::Total, Estimator::MeanBaseline],
+                0.99,
+                d,
+            );
+            let width = plan.width();
+            let reps = wavy(b_count, width, 0.1);
+            let halves = wavy(20, width, 0.7);
+            let mut point = wavy(1, width, 0.1).row(0).to_vec();
+            point[width - 1] = 1.0; // episode length T of the auxiliary block
+            let run = |threads| {
+                rayon::ThreadPoolBuilder::new()
+                    .num_threads(threads)
+                    .build()
+                    .unwrap()
+                    .install(|| {
+                        summarise(&plan, 0, &point, reps.view(), halves.view(), &config(true))
+                    })
+            };
+            let one = run(1);
+            assert!(one.0[1].bias_z.is_some());
+            assert_eq!(one, run(2));
+            assert_eq!(one, run(3));
+        }
+    }
 }
