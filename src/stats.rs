@@ -15,10 +15,10 @@
 //!   B d min(B, d) / 2 multiply-adds, at most B^2 d / 2: linear in d.
 //!
 //! Replicates are taken one estimator at a time from a [`ReplicateGradients`] source, so at
-//! most three B x d matrices (the reference's, the current estimator's, and its difference
-//! from the reference) are alive, never a B x estimators x d array. Every per-coordinate
-//! loop runs over contiguous rows, and each sum runs in a fixed order, so the figures do not
-//! depend on the thread count.
+//! most two B x d matrices (the reference's, and the current estimator's, turned in place into
+//! its difference from the reference) are alive, never a B x estimators x d array. Every
+//! per-coordinate loop runs over contiguous rows, and each sum runs in a fixed order, so the
+//! figures do not depend on the thread count.
 //!
 //! Undefined figures: an optional figure is `None` with a note saying why, never NaN. A
 //! figure derived from an overflowed or undefined one is undefined too, never a finite
@@ -327,10 +327,12 @@ pub fn summarise_with(
     };
     let stats = (0..plan.estimators.len())
         .map(|k| {
+            // The reference's own replicates are already in ctx: no second copy.
             let (reps, constant) = if k == reference {
-                (ctx.ref_reps.clone(), ref_constant)
+                (None, ref_constant)
             } else {
-                source.bootstrap(k)
+                let (reps, constant) = source.bootstrap(k);
+                (Some(reps), constant)
             };
             let (p, point_constant) = point_grad(k);
             let mut st = estimator_stats(&ctx, k, p, reps, source.halves(k));
@@ -369,21 +371,32 @@ struct Spread {
     spread: f64,
 }
 
-fn spread(ctx: &Context, k: usize, point: &[f64], mut reps: Array2<f64>) -> Spread {
-    let own = Moments::of(reps.view());
-    reps -= &ctx.ref_reps;
-    let diff = Moments::of(reps.view());
+/// `reps` is None for the reference itself, whose paired difference is zero.
+fn spread(ctx: &Context, point: &[f64], reps: Option<Array2<f64>>) -> Spread {
+    let (own, diff, spread) = match reps {
+        None => {
+            let (b, d) = ctx.ref_reps.dim();
+            let zero = Moments {
+                mean: vec![0.0; d],
+                var: vec![0.0; d],
+                sq_norms: vec![0.0; b],
+            };
+            (Moments::of(ctx.ref_reps.view()), zero, 0.0)
+        }
+        Some(mut reps) => {
+            let own = Moments::of(reps.view());
+            reps -= &ctx.ref_reps;
+            let diff = Moments::of(reps.view());
+            let spread = (2.0 * covariance_frobenius_sq(&mut reps, &diff.mean)).sqrt();
+            (own, diff, spread)
+        }
+    };
     let bias_coords: Vec<f64> = point
         .iter()
         .zip(&ctx.ref_point)
         .zip(&diff.var)
         .map(|((a, r), v)| (a - r) * (a - r) - v)
         .collect();
-    let spread = if k == ctx.reference {
-        0.0
-    } else {
-        (2.0 * covariance_frobenius_sq(&mut reps, &diff.mean)).sqrt()
-    };
     Spread {
         norms: own.sq_norms.iter().map(|x| x.sqrt()).collect(),
         raw_bias: bias_coords.iter().sum(),
@@ -425,11 +438,11 @@ fn estimator_stats(
     ctx: &Context,
     k: usize,
     point: Vec<f64>,
-    reps: Array2<f64>,
+    reps: Option<Array2<f64>>,
     halves: Array2<f64>,
 ) -> EstimatorStats {
     let cfg = ctx.cfg;
-    let sp = spread(ctx, k, &point, reps);
+    let sp = spread(ctx, &point, reps);
     let mut notes = Vec::new();
     let mut undefined: Vec<&str> = Vec::new();
     let variance: f64 = sp.var_k.iter().sum();
