@@ -40,6 +40,7 @@ fn stats() -> EstimatorStats {
         episodes_for_snr: Some(4),
         bias_limited: false,
         notes: vec![],
+        per_coord: None,
     }
 }
 
@@ -48,6 +49,7 @@ fn signal() -> Signal {
         signal: 3.0,
         signal_interval: UNIT,
         reference_variance: 1.0,
+        per_coord: None,
     }
 }
 
