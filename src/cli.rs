@@ -108,6 +108,11 @@ pub struct InspectArgs {
     /// Also fit a cross-fitted value baseline and report its quality (reads the log twice)
     #[arg(long)]
     pub fit_value: bool,
+
+    /// Also check this policy file against the log's columns and show it (for a network: its
+    /// layers, parameter count, normalisation and which tensors form theta)
+    #[arg(long, value_name = "FILE")]
+    pub policy: Option<String>,
 }
 
 #[derive(Debug, Clone, Copy, ValueEnum)]
@@ -518,9 +523,22 @@ pub fn run(cli: Cli) -> Result<u8> {
             } else {
                 None
             };
-            let report = inspect::run(a.log.open()?, a.gamma, critic.as_ref())?;
+            let reader = a.log.open()?;
+            let policy = a
+                .policy
+                .as_deref()
+                .map(|p| crate::policy::Policy::load(p, reader.schema()))
+                .transpose()?;
+            let mut report = inspect::run(reader, a.gamma, critic.as_ref())?;
+            report.policy = policy.map(|p| p.summary());
             let text = match a.format {
-                InspectFormat::Table => report::inspect::render_text(&report),
+                InspectFormat::Table => {
+                    let mut t = report::inspect::render_text(&report);
+                    if let Some(p) = &report.policy {
+                        t.push_str(&p.render_text());
+                    }
+                    t
+                }
                 InspectFormat::Json => report::inspect::render_json(&report),
             };
             output::write("-", &text)?;

@@ -219,3 +219,5 @@ impl Policy {
 
 #[cfg(test)]
 mod tests;
+#[cfg(test)]
+mod tests_network;
