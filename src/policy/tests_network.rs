@@ -182,8 +182,9 @@ fn assert_matches_finite_differences(
 /// No pre-activation sits within 1e-3 of a kink (relu, leaky relu, elu at 0), where a
 /// finite difference of step 1e-5 would straddle it.
 fn assert_clear_of_kinks(net: &Network, obs: &Array2<f64>) {
-    let pass = net.mlp.pass(obs.view());
-    for z in &pass.pre {
+    let pass = net.mlp.pass(obs.view(), false);
+    for (l, layer) in net.mlp.layers.iter().enumerate() {
+        let z = layer.affine(&net.mlp.params, &pass.inputs[l].view());
         assert!(
             z.iter().all(|v| v.abs() > 1e-3),
             "a pre-activation near 0: {z}"
