@@ -8,5 +8,6 @@ mod corpus;
 mod fuzz_inputs;
 mod gate;
 mod inspect;
+mod network;
 mod policy;
 mod sweep;
