@@ -183,8 +183,9 @@ fn every_corpus_file_behaves_as_its_class_says() {
 
 /// Bad policy descriptions and weights (tests/fixtures/bad_policy/), each audited against the
 /// fixture log.csv there: (description, failure class, fragments the message must contain).
-/// actor.safetensors (a 2 -> 3 tanh -> Gaussian actor, F32, plus an I64 tensor 'steps' and a spare [3, 3] one) and
-/// corrupt.safetensors (a header that is not JSON) are the weights they name.
+/// actor.safetensors (a 2 -> 3 tanh -> Gaussian actor, F32, plus an I64 tensor 'steps' and a
+/// spare [3, 3] one) and corrupt.safetensors (a header that is not JSON) are the weights they
+/// name.
 const POLICY_CASES: &[(&str, &str, &[&str])] = &[
     (
         "missing_tensor.json",
