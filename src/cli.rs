@@ -161,7 +161,8 @@ pub struct AuditOptions {
     pub splits: usize,
 
     /// Compute the score vectors from the obs and act columns with this policy file (JSON,
-    /// schema gradaudit.policy/1; see the README)
+    /// schema gradaudit.policy/1: a linear family, or an MLP with safetensors weights; see the
+    /// README)
     #[arg(long, value_name = "FILE")]
     pub policy: Option<String>,
 

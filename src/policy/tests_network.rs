@@ -734,3 +734,24 @@ fn linear_policy_errors_name_the_rows_own_line_and_column() {
         "{msg}"
     );
 }
+
+#[test]
+fn the_network_fuzz_seeds_are_valid_policies() {
+    // The fuzz target's header (see fuzzing.rs): four obs and two act columns.
+    let headers = [
+        "episode", "reward", "obs_0", "obs_1", "obs_2", "obs_3", "act_0", "act_1",
+    ];
+    let s = Schema::resolve(
+        &ColumnSpec::default(),
+        headers.iter().map(|s| s.to_string()).collect(),
+        "fuzz.csv",
+    )
+    .unwrap();
+    for (name, dim) in [("mlp", 2 * 3 + 2 + 4 + 2 + 2), ("mlp_categorical", 2 + 6)] {
+        let path = format!(
+            "{}/fuzz/seeds/policy/{name}.json",
+            env!("CARGO_MANIFEST_DIR")
+        );
+        assert_eq!(Policy::load(&path, &s).unwrap().dim(), dim, "{name}");
+    }
+}
