@@ -505,45 +505,49 @@ impl AuditArgs {
     }
 }
 
+/// `gradaudit inspect`: the log's summary, with the critic and the policy when asked for.
+fn run_inspect(a: InspectArgs) -> Result<()> {
+    if !(0.0..=1.0).contains(&a.gamma) {
+        return Err(Error::usage(format!(
+            "--gamma {} must lie in [0, 1]",
+            a.gamma
+        )));
+    }
+    let critic = if a.fit_value {
+        let fit = crate::critic::FitConfig {
+            gamma: a.gamma,
+            ..Default::default()
+        };
+        Some(a.log.fit_critic(&fit)?)
+    } else {
+        None
+    };
+    let reader = a.log.open()?;
+    let policy = a
+        .policy
+        .as_deref()
+        .map(|p| crate::policy::Policy::load(p, reader.schema()))
+        .transpose()?;
+    let mut report = inspect::run(reader, a.gamma, critic.as_ref())?;
+    report.policy = policy.map(|p| p.summary());
+    let text = match a.format {
+        InspectFormat::Table => {
+            let mut t = report::inspect::render_text(&report);
+            if let Some(p) = &report.policy {
+                t.push_str(&p.render_text());
+            }
+            t
+        }
+        InspectFormat::Json => report::inspect::render_json(&report),
+    };
+    output::write("-", &text)?;
+    Ok(())
+}
+
 /// Runs a parsed command line; returns the exit code.
 pub fn run(cli: Cli) -> Result<u8> {
     match cli.command {
-        Command::Inspect(a) => {
-            if !(0.0..=1.0).contains(&a.gamma) {
-                return Err(Error::usage(format!(
-                    "--gamma {} must lie in [0, 1]",
-                    a.gamma
-                )));
-            }
-            let critic = if a.fit_value {
-                let fit = crate::critic::FitConfig {
-                    gamma: a.gamma,
-                    ..Default::default()
-                };
-                Some(a.log.fit_critic(&fit)?)
-            } else {
-                None
-            };
-            let reader = a.log.open()?;
-            let policy = a
-                .policy
-                .as_deref()
-                .map(|p| crate::policy::Policy::load(p, reader.schema()))
-                .transpose()?;
-            let mut report = inspect::run(reader, a.gamma, critic.as_ref())?;
-            report.policy = policy.map(|p| p.summary());
-            let text = match a.format {
-                InspectFormat::Table => {
-                    let mut t = report::inspect::render_text(&report);
-                    if let Some(p) = &report.policy {
-                        t.push_str(&p.render_text());
-                    }
-                    t
-                }
-                InspectFormat::Json => report::inspect::render_json(&report),
-            };
-            output::write("-", &text)?;
-        }
+        Command::Inspect(a) => run_inspect(a)?,
         Command::Audit(a) => {
             let mut cfg = a.audit.config(&a.log)?;
             a.output.check()?;
