@@ -253,7 +253,8 @@ impl Network {
             .position(|l| wanted(l.weight) || l.bias.is_some_and(wanted));
         // d log pi / d x_L, needed only when a trunk layer is in theta.
         let mut g: Option<Array2<f64>> = None;
-        for (layer, delta) in head.layers {
+        let n_head = head.layers.len();
+        for (i, (layer, delta)) in head.layers.into_iter().enumerate() {
             if lowest.is_some() {
                 let down = delta.dot(&params[layer.weight].value);
                 g = Some(match g {
@@ -261,7 +262,13 @@ impl Network {
                     None => down,
                 });
             }
-            self.take_dense(layer, delta, &pass.inputs[n_layers], &mut grads);
+            if i + 1 == n_head && self.theta_params.contains(&layer.weight) {
+                // The trunk's backward pass needs only the slopes: x_L can move.
+                let x = std::mem::take(&mut pass.inputs[n_layers]);
+                self.take_dense_owned(layer, delta, x, &mut grads);
+            } else {
+                self.take_dense(layer, delta, &pass.inputs[n_layers], &mut grads);
+            }
         }
         if let Some((p, full)) = head.param {
             grads[p] = Some(GroupGrad::Full(full));
