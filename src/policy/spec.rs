@@ -86,12 +86,10 @@ struct DenseWire {
     clip: Option<[f64; 2]>,
 }
 
-#[derive(Debug, Deserialize)]
-#[serde(untagged)]
-enum SigmaWire {
-    Tensor(String),
-    Layer(DenseWire),
-}
+/// A Gaussian head's log sigma: a tensor name, or a layer object. Kept as JSON until the
+/// head is built, so that a bad layer object gets serde's own message (an untagged enum's
+/// would only say that no variant matched).
+type SigmaWire = serde_json::Value;
 
 #[derive(Debug, Deserialize)]
 #[serde(tag = "kind", rename_all = "snake_case", deny_unknown_fields)]
@@ -256,27 +254,16 @@ fn gaussian_head(
 ) -> Result<Head> {
     let mean = head_dense(b, mean, h, Some(m), "the mean layer")?;
     let sigma = match sigma {
-        SigmaWire::Tensor(name) => Sigma::Param(b.add(name, Want::Vector(m), "log sigma")?),
-        SigmaWire::Layer(d) => {
-            let clip = match d.clip {
-                Some([lo, hi]) if lo.is_finite() && hi.is_finite() && lo < hi => Some((lo, hi)),
-                Some(_) => {
-                    return Err(b
-                        .ctx
-                        .bad("the log sigma layer's \"clip\" must be [lo, hi], finite, lo < hi"));
-                }
-                None => None,
-            };
-            let role = "the log sigma layer";
-            let layer = b.dense(
-                &d.weight,
-                d.bias.as_deref(),
-                h,
-                Some(m),
-                Activation::Identity,
-                role,
-            )?;
-            Sigma::Layer { layer, clip }
+        serde_json::Value::String(name) => {
+            Sigma::Param(b.add(name, Want::Vector(m), "log sigma")?)
+        }
+        other => {
+            let d: DenseWire = serde_json::from_value(other.clone()).map_err(|e| {
+                b.ctx.bad(format!(
+                    "\"log_sigma\" is a tensor name or a layer {{\"weight\", \"bias\", \"clip\"}}: {e}"
+                ))
+            })?;
+            sigma_layer(b, &d, h, m)?
         }
     };
     Ok(Head::Gaussian {
@@ -284,6 +271,23 @@ fn gaussian_head(
         sigma,
         squash,
     })
+}
+
+/// A log-sigma output layer, clipped to [lo, hi] when `clip` is given.
+fn sigma_layer(b: &mut Builder, d: &DenseWire, h: usize, m: usize) -> Result<Sigma> {
+    let clip = match d.clip {
+        Some([lo, hi]) if lo.is_finite() && hi.is_finite() && lo < hi => Some((lo, hi)),
+        Some(_) => {
+            return Err(b
+                .ctx
+                .bad("the log sigma layer's \"clip\" must be [lo, hi], finite, lo < hi"));
+        }
+        None => None,
+    };
+    let role = "the log sigma layer";
+    let bias = d.bias.as_deref();
+    let layer = b.dense(&d.weight, bias, h, Some(m), Activation::Identity, role)?;
+    Ok(Sigma::Layer { layer, clip })
 }
 
 /// The head and the action columns it reads.

@@ -678,6 +678,13 @@ fn description_errors_are_clear() {
         "{}",
         err(&d)
     );
+    let mut d = base.clone();
+    d["head"]["log_sigma"] = json!({"wieght": "Ws"});
+    assert!(
+        err(&d).contains("\"log_sigma\" is a tensor name or a layer") && err(&d).contains("wieght"),
+        "{}",
+        err(&d)
+    );
     let mut d = base;
     d["tensors"]["Wx"] = json!([[1.0, 2.0], [3.0]]);
     d["layers"][0]["weight"] = json!("Wx");
