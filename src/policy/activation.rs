@@ -1,6 +1,6 @@
 //! Elementwise activations of dense layers and their derivatives.
 //!
-//! For y = f(z): tanh f' = 1 - y^2; relu f' = 1[z > 0]; elu (alpha) y = z for z > 0 else
+//! For y = f(z): tanh f' = 1 - y^2; relu f' = 1(z > 0); elu (alpha) y = z for z > 0 else
 //! alpha (e^z - 1), f' = 1 or y + alpha; leaky relu (slope s) f' = 1 or s; silu (swish)
 //! y = z sigmoid(z), f' = sigmoid(z) (1 + z (1 - sigmoid(z))); sigmoid f' = y (1 - y);
 //! softplus y = ln(1 + e^z), f' = sigmoid(z). At the kinks of relu and leaky relu (z = 0) the

@@ -64,7 +64,7 @@ pub struct Param {
     pub value: Array2<f64>,
 }
 
-/// A dense layer: indices of its weight [out, in] and bias [out] in the parameter list.
+/// A dense layer: indices of its weight `[out, in]` and bias `[out]` in the parameter list.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Dense {
     pub weight: usize,
@@ -159,14 +159,16 @@ impl Mlp {
 }
 
 /// A plain MLP forward pass, usable for a value network: T x n_in -> T x n_out (the last
-/// layer's output after its activation).
+/// layer's output after its activation; normalisation, when the description has it, is
+/// applied here, so pass the raw obs columns).
 ///
-/// For a critic, load the description with `Mlp::from_json` / `Mlp::load` (family
-/// `mlp_value`: `features`, optional `normalize`, `layers` whose last layer has one output
-/// and activation `identity`, and `weights` or inline `tensors`, exactly as for an actor), build
-/// the T x n_in input with `Mlp::inputs(ep)`-style gathering of the listed obs columns (the
-/// description's `features`, in order, raw: `forward` normalises), and call
-/// `forward(&mlp, obs.view())`; column 0 of the result is V(s_t) for each step.
+/// For a critic: write an `"family": "mlp_value"` description (the actor's fields `features`,
+/// `normalize`, `layers`, `weights` / `tensors`; no head, theta or actions; its last layer has
+/// one output and activation `identity`), load it with
+/// `policy::spec::ValueNet::load(path, reader.schema())`, and either call
+/// `value_net.values(&episode)` (V(s_t) for each step, an Array1) or
+/// `forward(&value_net.mlp, policy::gather(&ep.obs, ep.obs_dim, &value_net.features).view())`
+/// and read column 0.
 pub fn forward(mlp: &Mlp, obs: ArrayView2<f64>) -> Array2<f64> {
     mlp.pass(obs, false)
         .inputs

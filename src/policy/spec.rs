@@ -1,7 +1,8 @@
 //! The MLP description (`family: "mlp"` for an actor, `"mlp_value"` for a critic) and its
 //! validation into a `Network` / `Mlp`: every tensor is named explicitly, looked up in the
 //! safetensors file or the inline `tensors`, and checked against the shape its place needs
-//! (dense weights [out, in], biases [out], log sigma [m] or [1, m], statistics [n_obs]).
+//! (dense weights `[out, in]`, biases `[out]`, log sigma `[m]` or `[1, m]`, statistics
+//! `[n_obs]`).
 //!
 //! theta is every parameter tensor by default, or the tensors listed in `theta`; either way
 //! in network order (trunk layers first to last, weight before bias, then the head: mean,
@@ -381,7 +382,7 @@ fn select_theta(b: &Builder, listed: Option<&[String]>) -> Result<Vec<usize>> {
         .collect())
 }
 
-/// Component names of a tensor, row-major: "name[i,j]" (2-D) or "name[k]" (1-D).
+/// Component names of a tensor, row-major: `name[i,j]` (2-D) or `name[k]` (1-D).
 pub fn component_names(name: &str, shape: &[usize]) -> Vec<String> {
     match shape {
         [r, c] => (0..*r)
