@@ -762,3 +762,19 @@ fn the_network_fuzz_seeds_are_valid_policies() {
         assert_eq!(Policy::load(&path, &s).unwrap().dim(), dim, "{name}");
     }
 }
+
+// bfloat16 keeps float32's sign and 8 exponent bits and 7 mantissa bits: 0x3DCD is 0.1
+// rounded to nearest, the float32 bit pattern 0x3DCD0000 = 0.10009765625. IEEE 754 binary16:
+// 0x2E66 has exponent 11 - 15 = -4 and mantissa 1 + 614/1024, so 1.599609375 / 16 =
+// 0.0999755859375. Both little-endian, as the safetensors format stores them.
+#[test]
+fn half_precision_bytes_convert_to_their_exact_values() {
+    use safetensors::Dtype;
+    let bf = weights::convert(Dtype::BF16, &[0xCD, 0x3D, 0x80, 0xBF]).unwrap();
+    assert_eq!(bf, [0.10009765625, -1.0]);
+    let f16 = weights::convert(Dtype::F16, &[0x66, 0x2E, 0x00, 0x3C]).unwrap();
+    assert_eq!(f16, [0.0999755859375, 1.0]);
+    let f32 = weights::convert(Dtype::F32, &0.1f32.to_le_bytes()).unwrap();
+    assert_eq!(f32, [f64::from(0.1f32)]);
+    assert!(weights::convert(Dtype::I32, &[0, 0, 0, 0]).is_none());
+}
