@@ -21,6 +21,9 @@ pub struct Episode {
     pub key: Vec<u8>,
     /// Line of its first row in the log, for messages.
     pub first_line: u64,
+    /// Line of each step's row in the log, for messages about one step (empty for episodes
+    /// built in memory).
+    pub lines: Vec<u64>,
     pub rewards: Vec<f64>,
     pub values: Option<Vec<f64>>,
     pub q: Option<Vec<f64>>,
@@ -49,6 +52,7 @@ impl Episode {
             id: String::from_utf8_lossy(raw).into_owned(),
             key: raw.to_vec(),
             first_line,
+            lines: Vec::new(),
             rewards: Vec::new(),
             values: layout.value.then(Vec::new),
             q: layout.q.then(Vec::new),

@@ -11,5 +11,6 @@ mod hardening_counts;
 mod hardening_files;
 mod hardening_numeric;
 mod inspect;
+mod network;
 mod policy;
 mod sweep;
