@@ -12,6 +12,9 @@
 //! phi(s) is the listed obs columns, plus a constant 1 last when `constant_feature` is true.
 
 pub mod family;
+#[doc(hidden)]
+pub mod network_stub;
+pub mod projection;
 
 use crate::error::{Error, Position, Result};
 use crate::log::Schema;
