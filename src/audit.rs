@@ -470,7 +470,7 @@ pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
         warnings,
     };
     if let Some(k) = cfg.sketch {
-        crate::sketch::rescale(&mut report, k);
+        crate::sketch::rescale(&mut report, k, crate::sketch::Source::Logged, &[], None);
     }
     Ok(report)
 }

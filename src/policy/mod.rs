@@ -11,6 +11,7 @@
 //!
 //! phi(s) is the listed obs columns, plus a constant 1 last when `constant_feature` is true.
 
+pub mod clipping;
 pub mod family;
 #[doc(hidden)]
 pub mod network_stub;
