@@ -39,6 +39,10 @@ pub struct AuditConfig {
     pub sketch: Option<usize>,
     /// A cross-fitted critic replacing the log's value column (see critic.rs).
     pub critic: Option<crate::critic::Critic>,
+    /// Whether to project a policy network's scores (policy/projection.rs).
+    pub project: crate::policy::projection::ProjectMode,
+    /// A value network description computing V(s_t) (critic/net.rs).
+    pub value_net: Option<String>,
 }
 
 /// Where score vectors come from when both are available.
@@ -71,6 +75,8 @@ impl Default for AuditConfig {
             scores_from: None,
             sketch: None,
             critic: None,
+            project: crate::policy::projection::ProjectMode::Auto,
+            value_net: None,
         }
     }
 }

@@ -16,6 +16,9 @@ pub struct Episode {
     pub id: String,
     /// Line of its first row in the log, for messages.
     pub first_line: u64,
+    /// Line of each step's row in the log, for messages about one step (empty for episodes
+    /// built in memory).
+    pub lines: Vec<u64>,
     pub rewards: Vec<f64>,
     pub values: Option<Vec<f64>>,
     pub q: Option<Vec<f64>>,
@@ -35,6 +38,7 @@ impl Episode {
         Episode {
             id,
             first_line,
+            lines: Vec::new(),
             rewards: Vec::new(),
             values: layout.value.then(Vec::new),
             q: layout.q.then(Vec::new),

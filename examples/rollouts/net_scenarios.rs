@@ -188,7 +188,7 @@ pub fn description(
         "head": {
             "kind": "gaussian",
             "mean": {"weight": "mu.weight", "bias": "mu.bias"},
-            "log_std": "log_std",
+            "log_sigma": "log_std",
         },
     });
     if let Some(b) = bounds {

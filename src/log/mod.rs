@@ -356,8 +356,8 @@ impl LogReader {
         open.last_step = row.step;
         let ep = &mut open.episode;
         let w = self.parser.vector_width();
-        // Each step holds its vector fields and up to four scalars.
-        self.held += 8 * (w as u64 + 4);
+        // Each step holds its vector fields, up to four scalars and its line number.
+        self.held += 8 * (w as u64 + 5);
         if self.held > self.budget.bytes {
             return Err(Error::input_hint(
                 self.parser.at(line, None),
@@ -379,6 +379,7 @@ impl LogReader {
         ep.obs.extend_from_slice(&v[d..d + o]);
         ep.act.extend_from_slice(&v[d + o..]);
         ep.rewards.push(row.reward);
+        ep.lines.push(line);
         for (x, xs) in [
             (row.value, ep.values.as_mut()),
             (row.q, ep.q.as_mut()),
@@ -400,7 +401,7 @@ impl LogReader {
                 }
             };
             let done = self.open.remove(id).expect("open above").episode;
-            self.held -= 8 * (w as u64 + 4) * done.len() as u64;
+            self.held -= 8 * (w as u64 + 5) * done.len() as u64;
             self.ended.insert(id.to_vec(), line);
             return Ok(Some(done));
         }

@@ -100,6 +100,7 @@ mod tests {
         Episode {
             id: "e".into(),
             first_line: 2,
+            lines: Vec::new(),
             rewards: vec![0.0; acts.len()],
             values: None,
             q: None,

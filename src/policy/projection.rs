@@ -27,7 +27,7 @@ use crate::resample::{Stream, rng};
 use ndarray::{Array2, ArrayView2, Axis};
 use rand_distr::{Distribution, StandardNormal};
 
-pub use super::network_stub::{GroupGrad, ThetaGroup};
+pub use super::network::{GroupGrad, ThetaGroup};
 
 /// Policies with more parameters than this are projected unless `--project` says otherwise.
 /// The exact statistics cost O(B d^2) per estimator (the bias noise floor needs tr(S^2)) and the

@@ -1,0 +1,498 @@
+//! The MLP description (`family: "mlp"` for an actor, `"mlp_value"` for a critic) and its
+//! validation into a `Network` / `Mlp`: every tensor is named explicitly, looked up in the
+//! safetensors file or the inline `tensors`, and checked against the shape its place needs
+//! (dense weights [out, in], biases [out], log sigma [m] or [1, m], statistics [n_obs]).
+//!
+//! theta is every parameter tensor by default, or the tensors listed in `theta`; either way
+//! in network order (trunk layers first to last, weight before bias, then the head: mean,
+//! log sigma; or the logits), whatever order the list gives.
+
+use super::activation::Activation;
+use super::description::Ctx;
+use super::heads::{Head, Sigma};
+use super::network::{Dense, Mlp, Network, Normalizer, Param};
+use super::weights::{Inline, Tensors, Want};
+use super::{Built, Model};
+use crate::error::Result;
+use ndarray::Array1;
+use serde::Deserialize;
+use std::collections::BTreeMap;
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct Wire {
+    #[allow(dead_code)]
+    schema: String,
+    #[allow(dead_code)]
+    family: String,
+    #[serde(default)]
+    #[allow(dead_code)]
+    note: Option<String>,
+    features: Vec<String>,
+    #[serde(default)]
+    actions: Option<Vec<String>>,
+    #[serde(default)]
+    action: Option<String>,
+    #[serde(default)]
+    weights: Option<String>,
+    #[serde(default)]
+    tensors: BTreeMap<String, Inline>,
+    #[serde(default)]
+    normalize: Option<NormWire>,
+    #[serde(default)]
+    layers: Vec<LayerWire>,
+    #[serde(default)]
+    head: Option<HeadWire>,
+    #[serde(default)]
+    theta: Option<Vec<String>>,
+}
+
+fn default_eps() -> f64 {
+    1e-8
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct NormWire {
+    mean: String,
+    var: String,
+    #[serde(default = "default_eps")]
+    eps: f64,
+    #[serde(default)]
+    clip: Option<f64>,
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct LayerWire {
+    weight: String,
+    #[serde(default)]
+    bias: Option<String>,
+    activation: String,
+    #[serde(default)]
+    alpha: Option<f64>,
+    #[serde(default)]
+    negative_slope: Option<f64>,
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct DenseWire {
+    weight: String,
+    #[serde(default)]
+    bias: Option<String>,
+    /// Only for a log sigma layer: clip its output to [lo, hi].
+    #[serde(default)]
+    clip: Option<[f64; 2]>,
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(untagged)]
+enum SigmaWire {
+    Tensor(String),
+    Layer(DenseWire),
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(tag = "kind", rename_all = "snake_case", deny_unknown_fields)]
+enum HeadWire {
+    Gaussian {
+        mean: DenseWire,
+        log_sigma: SigmaWire,
+    },
+    TanhGaussian {
+        mean: DenseWire,
+        log_sigma: SigmaWire,
+    },
+    Categorical {
+        logits: DenseWire,
+    },
+    Bernoulli {
+        logit: DenseWire,
+    },
+}
+
+/// Collects the parameter tensors in network order.
+struct Builder<'a> {
+    ctx: Ctx<'a>,
+    tensors: Tensors,
+    params: Vec<Param>,
+    /// Names of the normalisation statistics (not parameters).
+    stats: Vec<String>,
+}
+
+impl Builder<'_> {
+    fn add(&mut self, name: &str, want: Want, role: &str) -> Result<usize> {
+        if self.params.iter().any(|p| p.name == name) || self.stats.iter().any(|s| s == name) {
+            return Err(self.ctx.bad(format!(
+                "tensor '{name}' is named twice; each place in the network needs its own tensor"
+            )));
+        }
+        let p = self.tensors.get(name, want, role)?;
+        self.params.push(p);
+        Ok(self.params.len() - 1)
+    }
+
+    /// A dense layer reading `n_in` inputs; `n_out` fixes its output count when known.
+    fn dense(
+        &mut self,
+        w: &str,
+        b: Option<&str>,
+        n_in: usize,
+        n_out: Option<usize>,
+        activation: Activation,
+        role: &str,
+    ) -> Result<Dense> {
+        let want = Want::Matrix {
+            rows: n_out,
+            cols: n_in,
+        };
+        let weight = self.add(w, want, &format!("the weight of {role}"))?;
+        let n_out = self.params[weight].value.nrows();
+        let bias = match b {
+            Some(b) => Some(self.add(b, Want::Vector(n_out), &format!("the bias of {role}"))?),
+            None => None,
+        };
+        Ok(Dense {
+            weight,
+            bias,
+            activation,
+            n_in,
+            n_out,
+        })
+    }
+
+    fn normalizer(&mut self, n: &NormWire, n_in: usize) -> Result<Normalizer> {
+        if !(n.eps.is_finite() && n.eps >= 0.0) {
+            return Err(self
+                .ctx
+                .bad("\"normalize\": \"eps\" must be finite and at least 0"));
+        }
+        if n.clip.is_some_and(|c| !(c.is_finite() && c > 0.0)) {
+            return Err(self
+                .ctx
+                .bad("\"normalize\": \"clip\" must be finite and positive"));
+        }
+        let mean = self
+            .tensors
+            .get(&n.mean, Want::Vector(n_in), "the normalisation mean")?;
+        let var = self
+            .tensors
+            .get(&n.var, Want::Vector(n_in), "the normalisation variance")?;
+        if let Some(k) = var
+            .value
+            .iter()
+            .position(|&v| (v + n.eps).partial_cmp(&0.0) != Some(std::cmp::Ordering::Greater))
+        {
+            return Err(self.ctx.bad(format!(
+                "normalisation variance '{}' entry {k} is {}: var + eps must be positive",
+                n.var,
+                var.value[[0, k]]
+            )));
+        }
+        self.stats = vec![n.mean.clone(), n.var.clone()];
+        Ok(Normalizer {
+            mean: mean.value.row(0).to_owned(),
+            inv_std: var.value.row(0).mapv(|v| 1.0 / (v + n.eps).sqrt()),
+            eps: n.eps,
+            clip: n.clip,
+            names: (n.mean.clone(), n.var.clone()),
+        })
+    }
+
+    fn trunk(&mut self, w: &Wire, n_in: usize) -> Result<(Option<Normalizer>, Vec<Dense>)> {
+        let norm = match &w.normalize {
+            Some(n) => Some(self.normalizer(n, n_in)?),
+            None => None,
+        };
+        let mut layers = Vec::new();
+        let mut width = n_in;
+        for (i, l) in w.layers.iter().enumerate() {
+            let role = format!("layer {}", i + 1);
+            let act = Activation::parse(&l.activation, l.alpha, l.negative_slope)
+                .map_err(|e| self.ctx.bad(format!("{role}: {e}")))?;
+            let d = self.dense(&l.weight, l.bias.as_deref(), width, None, act, &role)?;
+            width = d.n_out;
+            layers.push(d);
+        }
+        Ok((norm, layers))
+    }
+}
+
+/// The trunk's output width.
+fn width(layers: &[Dense], n_in: usize) -> usize {
+    layers.last().map_or(n_in, |l| l.n_out)
+}
+
+fn head_dense(
+    b: &mut Builder,
+    d: &DenseWire,
+    n_in: usize,
+    n_out: Option<usize>,
+    role: &str,
+) -> Result<Dense> {
+    if d.clip.is_some() {
+        return Err(b.ctx.bad(format!(
+            "{role}: \"clip\" applies only to a log sigma layer"
+        )));
+    }
+    b.dense(
+        &d.weight,
+        d.bias.as_deref(),
+        n_in,
+        n_out,
+        Activation::Identity,
+        role,
+    )
+}
+
+fn gaussian_head(
+    b: &mut Builder,
+    mean: &DenseWire,
+    sigma: &SigmaWire,
+    squash: bool,
+    h: usize,
+    m: usize,
+) -> Result<Head> {
+    let mean = head_dense(b, mean, h, Some(m), "the mean layer")?;
+    let sigma = match sigma {
+        SigmaWire::Tensor(name) => Sigma::Param(b.add(name, Want::Vector(m), "log sigma")?),
+        SigmaWire::Layer(d) => {
+            let clip = match d.clip {
+                Some([lo, hi]) if lo.is_finite() && hi.is_finite() && lo < hi => Some((lo, hi)),
+                Some(_) => {
+                    return Err(b
+                        .ctx
+                        .bad("the log sigma layer's \"clip\" must be [lo, hi], finite, lo < hi"));
+                }
+                None => None,
+            };
+            let role = "the log sigma layer";
+            let layer = b.dense(
+                &d.weight,
+                d.bias.as_deref(),
+                h,
+                Some(m),
+                Activation::Identity,
+                role,
+            )?;
+            Sigma::Layer { layer, clip }
+        }
+    };
+    Ok(Head::Gaussian {
+        mean,
+        sigma,
+        squash,
+    })
+}
+
+/// The head and the action columns it reads.
+fn head(b: &mut Builder, w: &Wire, hw: &HeadWire, h: usize) -> Result<(Head, Vec<usize>)> {
+    let ctx = b.ctx;
+    let one = |kind: &str| -> Result<Vec<usize>> {
+        let a = w
+            .action
+            .clone()
+            .ok_or_else(|| ctx.bad(format!("a {kind} head needs \"action\" (one column)")))?;
+        if w.actions.is_some() {
+            return Err(ctx.bad(format!(
+                "a {kind} head reads one \"action\", not \"actions\""
+            )));
+        }
+        ctx.act(&[a])
+    };
+    let many = |kind: &str| -> Result<Vec<usize>> {
+        let a = w.actions.clone().ok_or_else(|| {
+            ctx.bad(format!(
+                "a {kind} head needs \"actions\" (a list of columns)"
+            ))
+        })?;
+        if w.action.is_some() || a.is_empty() {
+            return Err(ctx.bad(format!(
+                "a {kind} head reads a non-empty \"actions\" list, not \"action\""
+            )));
+        }
+        ctx.act(&a)
+    };
+    Ok(match hw {
+        HeadWire::Gaussian { mean, log_sigma } | HeadWire::TanhGaussian { mean, log_sigma } => {
+            let squash = matches!(hw, HeadWire::TanhGaussian { .. });
+            let acts = many(if squash { "tanh_gaussian" } else { "gaussian" })?;
+            (
+                gaussian_head(b, mean, log_sigma, squash, h, acts.len())?,
+                acts,
+            )
+        }
+        HeadWire::Categorical { logits } => {
+            let acts = one("categorical")?;
+            let logits = head_dense(b, logits, h, None, "the logits layer")?;
+            if logits.n_out < 2 {
+                return Err(
+                    ctx.bad("a categorical head needs at least 2 logits (rows of its weight)")
+                );
+            }
+            (Head::Categorical { logits }, acts)
+        }
+        HeadWire::Bernoulli { logit } => {
+            let acts = one("bernoulli")?;
+            (
+                Head::Bernoulli {
+                    logit: head_dense(b, logit, h, Some(1), "the logit layer")?,
+                },
+                acts,
+            )
+        }
+    })
+}
+
+/// Parameter indices forming theta: all, or those `listed`, in network order.
+fn select_theta(b: &Builder, listed: Option<&[String]>) -> Result<Vec<usize>> {
+    let Some(listed) = listed else {
+        return Ok((0..b.params.len()).collect());
+    };
+    if listed.is_empty() {
+        return Err(b
+            .ctx
+            .bad("\"theta\" is empty; leave it out to use every parameter"));
+    }
+    for (i, name) in listed.iter().enumerate() {
+        if listed[..i].contains(name) {
+            return Err(b.ctx.bad(format!("\"theta\" lists '{name}' twice")));
+        }
+        if b.stats.contains(name) {
+            return Err(b.ctx.bad(format!(
+                "\"theta\" lists '{name}', a normalisation statistic, not a parameter"
+            )));
+        }
+        if !b.params.iter().any(|p| &p.name == name) {
+            let known: Vec<&str> = b.params.iter().map(|p| p.name.as_str()).collect();
+            return Err(b.ctx.bad(format!(
+                "\"theta\" lists '{name}', which is no tensor of the network (its parameters: {})",
+                known.join(", ")
+            )));
+        }
+    }
+    Ok((0..b.params.len())
+        .filter(|&p| listed.contains(&b.params[p].name))
+        .collect())
+}
+
+/// Component names of a tensor, row-major: "name[i,j]" (2-D) or "name[k]" (1-D).
+pub fn component_names(name: &str, shape: &[usize]) -> Vec<String> {
+    match shape {
+        [r, c] => (0..*r)
+            .flat_map(|i| (0..*c).map(move |j| format!("{name}[{i},{j}]")))
+            .collect(),
+        _ => (0..shape.iter().product())
+            .map(|k| format!("{name}[{k}]"))
+            .collect(),
+    }
+}
+
+fn start<'a>(ctx: Ctx<'a>, w: &Wire) -> Result<(Builder<'a>, Vec<usize>)> {
+    if w.features.is_empty() {
+        return Err(ctx.bad("the network has no features (list its obs columns in \"features\")"));
+    }
+    let features = ctx.obs(&w.features)?;
+    let tensors = Tensors::open(ctx.file, w.weights.as_deref(), w.tensors.clone())?;
+    Ok((
+        Builder {
+            ctx,
+            tensors,
+            params: Vec::new(),
+            stats: Vec::new(),
+        },
+        features,
+    ))
+}
+
+/// Parses an `mlp` actor description.
+pub fn build(ctx: Ctx, text: &str) -> Result<Built> {
+    let w: Wire = ctx.parse(text)?;
+    let hw = w
+        .head
+        .as_ref()
+        .ok_or_else(|| ctx.bad("an mlp policy needs a \"head\""))?;
+    let (mut b, features) = start(ctx, &w)?;
+    let n_in = features.len();
+    let (norm, layers) = b.trunk(&w, n_in)?;
+    let (head, actions) = head(&mut b, &w, hw, width(&layers, n_in))?;
+    let theta = select_theta(&b, w.theta.as_deref())?;
+    let parameters = theta
+        .iter()
+        .flat_map(|&p| component_names(&b.params[p].name, &b.params[p].shape))
+        .collect();
+    let mlp = Mlp {
+        params: b.params,
+        norm,
+        layers,
+        n_in,
+    };
+    Ok(Built {
+        model: Model::Network(Box::new(Network::new(mlp, head, theta))),
+        features,
+        constant_feature: false,
+        actions,
+        parameters,
+    })
+}
+
+/// A value network: an `mlp_value` description's trunk, whose last layer has one output.
+#[derive(Debug, Clone, PartialEq)]
+pub struct ValueNet {
+    pub mlp: Mlp,
+    /// Positions of its input columns within the episode's obs vector.
+    pub features: Vec<usize>,
+}
+
+impl ValueNet {
+    pub fn load(path: &str, schema: &crate::log::Schema) -> Result<ValueNet> {
+        let text = std::fs::read_to_string(path).map_err(|e| crate::error::Error::io(path, e))?;
+        ValueNet::from_json(&text, path, schema)
+    }
+
+    pub fn from_json(text: &str, file: &str, schema: &crate::log::Schema) -> Result<ValueNet> {
+        let ctx = Ctx { file, schema };
+        let family = ctx.family(text)?;
+        if family != "mlp_value" {
+            return Err(ctx.bad(format!(
+                "a value network's family is 'mlp_value', not '{family}'"
+            )));
+        }
+        let w: Wire = ctx.parse(text)?;
+        if w.head.is_some() || w.theta.is_some() || w.actions.is_some() || w.action.is_some() {
+            return Err(ctx.bad(
+                "an mlp_value network has no head, theta or actions: its last layer is the value",
+            ));
+        }
+        let (mut b, features) = start(ctx, &w)?;
+        let (norm, layers) = b.trunk(&w, features.len())?;
+        if width(&layers, features.len()) != 1
+            || layers
+                .last()
+                .is_some_and(|l| l.activation != Activation::Identity)
+        {
+            return Err(ctx.bad(
+                "an mlp_value network's last layer must have 1 output and activation 'identity'",
+            ));
+        }
+        let n_in = features.len();
+        Ok(ValueNet {
+            mlp: Mlp {
+                params: b.params,
+                norm,
+                layers,
+                n_in,
+            },
+            features,
+        })
+    }
+
+    /// V(s_t) of each step of an episode.
+    pub fn values(&self, ep: &crate::episode::Episode) -> Array1<f64> {
+        let obs = super::gather(&ep.obs, ep.obs_dim, &self.features);
+        super::network::forward(&self.mlp, obs.view())
+            .column(0)
+            .to_owned()
+    }
+}
