@@ -52,13 +52,6 @@ pub enum ScoresFrom {
     Columns,
 }
 
-/// The score vectors of a run: their dimension, names, and the policy that computes them.
-pub struct Scores {
-    pub dim: usize,
-    pub names: Vec<String>,
-    pub policy: Option<crate::policy::Policy>,
-}
-
 impl Default for AuditConfig {
     fn default() -> Self {
         AuditConfig {
@@ -89,8 +82,19 @@ pub const DEFAULT_SEED: u64 = 20_240_917;
 pub const FEW_EPISODES: usize = 20;
 
 impl AuditConfig {
+    /// Whether values come from elsewhere than the log's value column (a fitted critic or a
+    /// value network), so that value-based estimators are available.
+    pub fn fitted_values(&self) -> bool {
+        self.critic.is_some() || self.value_net.is_some()
+    }
+
     /// Checks values that the option parser cannot.
     pub fn validate(&self) -> Result<()> {
+        if self.critic.is_some() && self.value_net.is_some() {
+            return Err(Error::usage(
+                "--fit-value and --value-net both give V(s_t); choose one",
+            ));
+        }
         if !(0.0..=1.0).contains(&self.gamma) {
             return Err(Error::usage(format!(
                 "--gamma {} must lie in [0, 1]",
@@ -176,45 +180,8 @@ fn id_order(a: &str, b: &str) -> Ordering {
     }
 }
 
-/// Where the score vectors come from: the log's score columns or a policy file.
-pub fn scores(reader: &LogReader, cfg: &AuditConfig) -> Result<Scores> {
-    let schema = reader.schema();
-    let columns = || Scores {
-        dim: schema.score_dim(),
-        names: schema
-            .scores
-            .iter()
-            .map(|&c| schema.headers[c].clone())
-            .collect(),
-        policy: None,
-    };
-    match (&cfg.policy, schema.score_dim(), cfg.scores_from) {
-        (None, 0, _) => Err(Error::usage(format!(
-            "{}: the log has no score columns, and gradients need the score vector \
-             grad log pi(a_t | s_t) of every step; log them as score_0..score_{{d-1}} (or name \
-             their prefix with --score-prefix), or give --policy FILE to compute them from the \
-             obs and act columns",
-            reader.file()
-        ))),
-        (None, _, Some(ScoresFrom::Policy)) => {
-            Err(Error::usage("--scores-from policy needs --policy FILE"))
-        }
-        (None, _, _) | (Some(_), _, Some(ScoresFrom::Columns)) => Ok(columns()),
-        (Some(_), d, None) if d > 0 => Err(Error::usage(format!(
-            "{}: the log has {d} score columns and a policy file was given; say which scores to \
-             use with --scores-from policy or --scores-from columns",
-            reader.file()
-        ))),
-        (Some(path), _, _) => {
-            let policy = crate::policy::Policy::load(path, schema)?;
-            Ok(Scores {
-                dim: policy.dim(),
-                names: policy.parameters.clone(),
-                policy: Some(policy),
-            })
-        }
-    }
-}
+mod scoring;
+pub use scoring::{Scorer, Scores, scores};
 
 /// The result of the single pass: one contribution row per episode, in canonical order.
 pub struct Collected {
@@ -242,15 +209,25 @@ pub fn collect(
     // depend on the order in which episodes end.
     let mut quality: Vec<[crate::critic::ExplainedVariance; 2]> = Vec::new();
     let mut buf = Vec::new();
-    while let Some(mut ep) = reader.next_episode()? {
-        if let Some(policy) = &scores.policy {
-            let first = ep.first_line;
-            policy.score_episode(&mut ep, reader.file(), first)?;
+    let value_net = cfg
+        .value_net
+        .as_deref()
+        .map(|path| crate::critic::net::ValueCritic::load(path, reader.schema()))
+        .transpose()?;
+    let mut clip = scores.clip.clone();
+    let mut scorer = Scorer::new(scores);
+    while let Some(mut ep) = scorer.next(&mut reader)? {
+        if let Some(c) = &mut clip {
+            c.push(&ep);
         }
         let mut q = [crate::critic::ExplainedVariance::default(); 2];
         q[0].push_episode(&ep, plan.gamma, &mut buf);
         if let Some(critic) = &cfg.critic {
             critic.apply(&mut ep);
+            q[1].push_episode(&ep, plan.gamma, &mut buf);
+        }
+        if let Some(v) = &value_net {
+            v.apply(&mut ep);
             q[1].push_episode(&ep, plan.gamma, &mut buf);
         }
         quality.push(q);
@@ -281,6 +258,7 @@ pub fn collect(
     input.rows = reader.rows();
     input.score_dim = plan.d;
     input.parameters = scores.names.clone();
+    input.value_net = value_net.as_ref().map(|v| v.summary());
     input.scores_from = if scores.policy.is_some() {
         "policy"
     } else {
@@ -303,7 +281,7 @@ pub fn collect(
             .has(Role::Value)
             .then(|| recorded.value())
             .flatten(),
-        fitted_explained_variance: fitted.value(),
+        fitted_explained_variance: fitted.value().filter(|_| cfg.critic.is_some()),
         fitted_folds: cfg.critic.as_ref().map(|c| c.folds()),
         fitted_features: cfg.critic.as_ref().map(|c| c.features()),
     };
@@ -317,10 +295,17 @@ pub fn collect(
     // Canonical order, so the same episodes in another row order give identical numbers.
     permute_rows(&mut flat, width, &order);
     let contrib = Array2::from_shape_vec((n, width), flat).expect("n x width values");
+    if let Some(v) = input.value_net.as_mut() {
+        v.explained_variance = fitted.value();
+    }
+    let mut warnings = reader.warnings().clone();
+    if let Some(c) = &clip {
+        c.warn(&mut warnings);
+    }
     Ok(Collected {
         contrib,
         input,
-        warnings: reader.warnings().clone(),
+        warnings,
     })
 }
 
@@ -414,7 +399,7 @@ pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
         reader.schema(),
         cfg.estimators.as_deref(),
         cfg.reference,
-        cfg.critic.is_some(),
+        cfg.fitted_values(),
     )?;
     let reference = estimators
         .iter()
@@ -477,6 +462,9 @@ pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
     };
     if let Some(k) = cfg.sketch {
         crate::sketch::rescale(&mut report, k, crate::sketch::Source::Logged, &[], None);
+    } else if let Some(p) = &scores.projection {
+        let source = crate::sketch::Source::Computed { full_dim: p.dim() };
+        crate::sketch::rescale(&mut report, p.k(), source, &[], None);
     }
     Ok(report)
 }

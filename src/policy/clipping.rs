@@ -6,10 +6,81 @@
 //! wrong: they are evaluated at the bound, not at the sample, and bias every gradient.
 
 use crate::episode::Episode;
+use crate::error::{Error, Position, Result};
+use crate::log::Schema;
 use crate::warnings::Warnings;
 
 /// Share of steps with an action component exactly on a bound above which we warn.
 pub const CLIPPED_SHARE: f64 = 0.01;
+
+/// The check for a policy description's `action_bounds` (one [low, high] per entry of its
+/// `actions` list), or None when it gives none. The description has already been validated
+/// as a policy, so its action names are columns of the log.
+pub fn from_description(path: &str, schema: &Schema) -> Result<Option<ClipCheck>> {
+    let text = std::fs::read_to_string(path).map_err(|e| Error::io(path, e))?;
+    let v: serde_json::Value =
+        serde_json::from_str(&text).map_err(|e| bad(path, format!("invalid JSON: {e}")))?;
+    let Some(bounds) = v.get("action_bounds") else {
+        return Ok(None);
+    };
+    let bounds: Vec<[f64; 2]> = serde_json::from_value(bounds.clone()).map_err(|_| {
+        bad(
+            path,
+            "\"action_bounds\" must be a list of [low, high] pairs",
+        )
+    })?;
+    let names: Vec<String> = v
+        .get("actions")
+        .and_then(|a| serde_json::from_value(a.clone()).ok())
+        .ok_or_else(|| {
+            bad(
+                path,
+                "\"action_bounds\" needs the \"actions\" list it bounds",
+            )
+        })?;
+    if names.len() != bounds.len() {
+        return Err(bad(
+            path,
+            format!(
+                "\"action_bounds\" has {} pairs for {} actions",
+                bounds.len(),
+                names.len()
+            ),
+        ));
+    }
+    let mut out = Vec::new();
+    for (name, [lo, hi]) in names.into_iter().zip(bounds) {
+        if !(lo.is_finite() && hi.is_finite() && lo < hi) {
+            return Err(bad(
+                path,
+                format!("action bounds [{lo}, {hi}] of '{name}' must be finite with low < high"),
+            ));
+        }
+        let pos = schema
+            .act
+            .iter()
+            .position(|&c| schema.headers[c] == name)
+            .ok_or_else(|| {
+                bad(
+                    path,
+                    format!("action '{name}' is not an act column of the log"),
+                )
+            })?;
+        out.push((pos, name, lo, hi));
+    }
+    Ok(Some(ClipCheck::new(out)))
+}
+
+fn bad(file: &str, message: impl Into<String>) -> Error {
+    Error::input_hint(
+        Position {
+            file: file.to_string(),
+            ..Default::default()
+        },
+        message,
+        "see the README section 'Policy files' for the format",
+    )
+}
 
 /// Counts, per action component, the steps whose logged action equals a bound.
 #[derive(Debug, Clone, PartialEq)]

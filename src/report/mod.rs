@@ -59,6 +59,8 @@ pub struct InputSummary {
     pub sketch: Option<Sketch>,
     /// How well the recorded and the fitted critic explain the discounted returns.
     pub critic: crate::critic::CriticQuality,
+    /// The value network behind V(s_t), with --value-net.
+    pub value_net: Option<crate::critic::net::ValueNetSummary>,
 }
 
 /// How the score columns were sketched, and what that means for the figures.
