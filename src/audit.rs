@@ -421,6 +421,7 @@ pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
         episodes: n,
         confidence: cfg.confidence,
         target_snr: cfg.target_snr,
+        per_coord: false,
     };
     let (stats, signal) = stats::summarise(
         &plan,

@@ -19,6 +19,25 @@ pub struct StatsConfig {
     pub confidence: f64,
     /// SNR the planning figure aims for.
     pub target_snr: f64,
+    /// Also return the per-coordinate terms of the squared figures ([`PerCoord`], the signal's
+    /// `per_coord`); off by default so that a normal audit keeps no d-length vectors.
+    pub per_coord: bool,
+}
+
+/// The per-coordinate terms of one estimator's squared figures, each of length d: for
+/// coordinate j, `variance[j]` is the bootstrap variance of g_kj, `bias_sq[j]` is
+/// (g_kj - g_ref,j)^2 minus the bootstrap variance of the paired difference in coordinate j
+/// (the noise-floor correction, so it may be negative), and `mse[j] = bias_sq[j] + variance[j]`.
+/// Summed over j in index order, `variance` gives the reported variance exactly and `bias_sq`
+/// the reported bias_sq exactly unless that was clamped at zero (then the sum is the negative
+/// raw estimate); `mse` sums to the reported mse up to rounding under the same proviso.
+/// They let figures of random projections of a larger score vector state their own precision
+/// from the spread over projections.
+#[derive(Debug, Clone, PartialEq)]
+pub struct PerCoord {
+    pub variance: Vec<f64>,
+    pub bias_sq: Vec<f64>,
+    pub mse: Vec<f64>,
 }
 
 /// A two-sided percentile interval.
@@ -52,15 +71,21 @@ pub struct EstimatorStats {
     /// The bias alone keeps the SNR below the target at any batch size.
     pub bias_limited: bool,
     pub notes: Vec<String>,
+    /// Per-coordinate terms of variance, bias_sq and mse, when [`StatsConfig::per_coord`].
+    pub per_coord: Option<PerCoord>,
 }
 
 /// Statistics shared by all estimators: the reference's signal.
-#[derive(Debug, Clone, Copy, PartialEq)]
+#[derive(Debug, Clone, PartialEq)]
 pub struct Signal {
     /// max(0, ||g_ref||^2 - V_ref): the squared norm of the reference gradient, noise removed.
     pub signal: f64,
     pub signal_interval: Interval,
     pub reference_variance: f64,
+    /// Per-coordinate terms g_ref,j^2 - V_ref,j of the signal before its clamp at zero (summed
+    /// in index order they give the reported signal exactly unless it was clamped), when
+    /// [`StatsConfig::per_coord`].
+    pub per_coord: Option<Vec<f64>>,
 }
 
 /// Computes every estimator's statistics. `point` is the mean contribution row over all
@@ -102,8 +127,8 @@ pub fn summarise(
         point_constant[k] = plan.gradient(k, point, p) == GradNote::ConstantReturns;
     }
 
-    // Variance trace of a set of replicate vectors given by f(b, j).
-    let var_trace = |f: &dyn Fn(usize, usize) -> f64| -> f64 {
+    // Per-coordinate variances of a set of replicate vectors given by f(b, j).
+    let var_coords = |f: &dyn Fn(usize, usize) -> f64| -> Vec<f64> {
         (0..d)
             .map(|j| {
                 let mean = (0..rep.shape()[0]).map(|b| f(b, j)).sum::<f64>() / b_count;
@@ -112,7 +137,7 @@ pub fn summarise(
                     .sum::<f64>()
                     / (b_count - 1.0)
             })
-            .sum()
+            .collect()
     };
     let norm = |v: &mut dyn Iterator<Item = f64>| v.map(|x| x * x).sum::<f64>().sqrt();
     let alpha = 1.0 - cfg.confidence;
@@ -124,7 +149,8 @@ pub fn summarise(
         }
     };
 
-    let v_ref = var_trace(&|b, j| rep[[b, reference, j]]);
+    let v_ref_coords = var_coords(&|b, j| rep[[b, reference, j]]);
+    let v_ref: f64 = v_ref_coords.iter().sum();
     let signal_interval = sq_norm_interval(
         (0..rep.shape()[0])
             .map(|b| (0..d).map(|j| rep[[b, reference, j]].powi(2)).sum())
@@ -132,24 +158,30 @@ pub fn summarise(
         v_ref,
         cfg.confidence,
     );
-    let ref_sq: f64 = points[reference].iter().map(|x| x * x).sum();
-    let signal = (ref_sq - v_ref).max(0.0);
+    let signal_coords: Vec<f64> = points[reference]
+        .iter()
+        .zip(&v_ref_coords)
+        .map(|(g, v)| g * g - v)
+        .collect();
+    let signal = signal_coords.iter().sum::<f64>().max(0.0);
     let n = cfg.episodes as f64;
 
     let stats = (0..k_count)
         .map(|k| {
             let mut notes = Vec::new();
-            let variance = var_trace(&|b, j| rep[[b, k, j]]);
-            let v_diff = var_trace(&|b, j| rep[[b, k, j]] - rep[[b, reference, j]]);
+            let var_k = var_coords(&|b, j| rep[[b, k, j]]);
+            let variance: f64 = var_k.iter().sum();
+            let v_diff_coords = var_coords(&|b, j| rep[[b, k, j]] - rep[[b, reference, j]]);
+            let v_diff: f64 = v_diff_coords.iter().sum();
             let bias_norms: Vec<f64> = (0..rep.shape()[0])
                 .map(|b| norm(&mut (0..d).map(|j| rep[[b, k, j]] - rep[[b, reference, j]])))
                 .collect();
-            let dist_sq: f64 = points[k]
-                .iter()
-                .zip(&points[reference])
-                .map(|(a, b)| (a - b).powi(2))
-                .sum();
-            let bias_sq = (dist_sq - v_diff).max(0.0);
+            let bias_coords: Vec<f64> = (0..d)
+                .map(|j| (points[k][j] - points[reference][j]).powi(2) - v_diff_coords[j])
+                .collect();
+            // ||g_k - g_ref||^2 - V_diff, summed per coordinate.
+            let raw_bias: f64 = bias_coords.iter().sum();
+            let bias_sq = raw_bias.max(0.0);
             let bias_sq_interval = sq_norm_interval(
                 bias_norms.iter().map(|x| x * x).collect(),
                 v_diff,
@@ -165,7 +197,7 @@ pub fn summarise(
                     d,
                 ))
             .sqrt();
-            let bias_z = (k != reference && spread > 0.0).then(|| (dist_sq - v_diff) / spread);
+            let bias_z = (k != reference && spread > 0.0).then(|| raw_bias / spread);
             let bias_detected = bias_z.is_some_and(|z| z >= BIAS_Z)
                 || (spread == 0.0 && k != reference && bias_sq > 0.0);
             let mse = bias_sq + variance;
@@ -264,6 +296,11 @@ pub fn summarise(
                 episodes_for_snr,
                 bias_limited,
                 notes,
+                per_coord: cfg.per_coord.then(|| PerCoord {
+                    mse: bias_coords.iter().zip(&var_k).map(|(b, v)| b + v).collect(),
+                    variance: var_k,
+                    bias_sq: bias_coords,
+                }),
             }
         })
         .collect();
@@ -273,6 +310,7 @@ pub fn summarise(
             signal,
             signal_interval,
             reference_variance: v_ref,
+            per_coord: cfg.per_coord.then_some(signal_coords),
         },
     )
 }
@@ -344,5 +382,76 @@ mod tests {
         assert!((percentile(&x, 0.1) - 1.4).abs() < 1e-12);
         assert_eq!(percentile(&x, 0.5), 3.0);
         assert_eq!(percentile(&x, 1.0), 5.0);
+    }
+
+    use crate::contrib::Plan;
+    use crate::estimator::Estimator;
+    use ndarray::Array2;
+
+    /// Two per-episode estimators (rtg = reference, total) in d = 3, with replicate rows from
+    /// a small deterministic generator, and a point row near their mean.
+    fn toy(b_count: usize, spread: f64) -> (Plan, Vec<f64>, Array2<f64>, Array2<f64>) {
+        let plan = Plan::new(vec![Estimator::Rtg, Estimator::Total], 0.99, 3);
+        let mut state = 12345u64;
+        let mut next = move || {
+            state = state
+                .wrapping_mul(6364136223846793005)
+                .wrapping_add(1442695040888963407);
+            (state >> 11) as f64 / (1u64 << 53) as f64 - 0.5
+        };
+        let base = [0.4, -0.2, 0.1, 0.5, -0.1, 0.3];
+        let reps = Array2::from_shape_fn((b_count, 6), |(_, c)| base[c] + spread * next());
+        let halves = Array2::from_shape_fn((8, 6), |(_, c)| base[c] + spread * next());
+        (plan, base.to_vec(), reps, halves)
+    }
+
+    fn config(per_coord: bool) -> StatsConfig {
+        StatsConfig {
+            episodes: 50,
+            confidence: 0.9,
+            target_snr: 1.0,
+            per_coord,
+        }
+    }
+
+    // The per-coordinate terms against their definitions: the sample variance with the B - 1
+    // denominator of column j, and (g_kj - g_ref,j)^2 minus the paired difference's variance.
+    #[test]
+    fn per_coordinate_terms_sum_to_the_reported_figures() {
+        let (plan, point, reps, halves) = toy(40, 0.2);
+        let (stats, signal) =
+            summarise(&plan, 0, &point, reps.view(), halves.view(), &config(true));
+        let sample_var = |col: &dyn Fn(usize) -> f64| {
+            let m = (0..40).map(col).sum::<f64>() / 40.0;
+            (0..40).map(|b| (col(b) - m).powi(2)).sum::<f64>() / 39.0
+        };
+        let total = &stats[1];
+        let pc = total.per_coord.as_ref().expect("requested");
+        for j in 0..3 {
+            let v = sample_var(&|b| reps[[b, 3 + j]]);
+            assert!((pc.variance[j] - v).abs() < 1e-15, "variance[{j}]");
+            let vd = sample_var(&|b| reps[[b, 3 + j]] - reps[[b, j]]);
+            let want = (point[3 + j] - point[j]).powi(2) - vd;
+            assert!((pc.bias_sq[j] - want).abs() < 1e-15, "bias_sq[{j}]");
+            assert!((pc.mse[j] - want - v).abs() < 1e-15, "mse[{j}]");
+        }
+        assert_eq!(pc.variance.iter().sum::<f64>(), total.variance);
+        assert!(total.bias_sq > 0.0, "this toy's bias is not clamped");
+        assert_eq!(pc.bias_sq.iter().sum::<f64>(), total.bias_sq);
+        assert!((pc.mse.iter().sum::<f64>() - total.mse).abs() < 1e-14);
+        let sc = signal.per_coord.as_ref().expect("requested");
+        let v_ref: f64 = (0..3).map(|j| sample_var(&|b| reps[[b, j]])).sum();
+        assert!((signal.reference_variance - v_ref).abs() < 1e-15);
+        assert!(signal.signal > 0.0);
+        assert_eq!(sc.iter().sum::<f64>(), signal.signal);
+        for (j, c) in sc.iter().enumerate() {
+            let vr = sample_var(&|b| reps[[b, j]]);
+            assert!((c - (point[j] * point[j] - vr)).abs() < 1e-15);
+        }
+        let (plain, plain_signal) =
+            summarise(&plan, 0, &point, reps.view(), halves.view(), &config(false));
+        assert!(plain.iter().all(|s| s.per_coord.is_none()));
+        assert!(plain_signal.per_coord.is_none());
+        assert_eq!(plain[1].mse, total.mse);
     }
 }

@@ -285,6 +285,7 @@ pub fn run(reader: LogReader, cfg: &SweepConfig) -> Result<SweepReport> {
         episodes: n,
         confidence: cfg.audit.confidence,
         target_snr: cfg.audit.target_snr,
+        per_coord: false,
     };
     let (stats, signal) =
         stats::summarise(&plan, 0, &point, replicates.view(), halves.view(), &scfg);
