@@ -421,7 +421,7 @@ pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
         episodes: n,
         confidence: cfg.confidence,
         target_snr: cfg.target_snr,
-        per_coord: false,
+        per_coord: cfg.sketch.is_some() || scores.projection.is_some(),
     };
     let (stats, signal) = stats::summarise(
         &plan,
@@ -432,6 +432,19 @@ pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
         &scfg,
     );
 
+    let per_coord: Vec<crate::sketch::CoordFigures> = plan
+        .estimators
+        .iter()
+        .zip(&stats)
+        .filter_map(|(e, s)| {
+            s.per_coord.as_ref().map(|c| crate::sketch::CoordFigures {
+                estimator: e.to_string(),
+                variance: c.variance.clone(),
+                bias_sq: c.bias_sq.clone(),
+                mse: c.mse.clone(),
+            })
+        })
+        .collect();
     let mut estimators: Vec<EstimatorRow> = plan
         .estimators
         .iter()
@@ -441,6 +454,7 @@ pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
         .collect();
     estimators.sort_by(|a, b| a.mse.total_cmp(&b.mse).then_with(|| a.name.cmp(&b.name)));
     let verdict = Verdict::from_rows(&estimators, signal.signal);
+    let signal_coords = signal.per_coord.as_deref();
     let mut report = AuditReport {
         tool: crate::report::Tool::current(),
         input,
@@ -462,10 +476,11 @@ pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
         warnings,
     };
     if let Some(k) = cfg.sketch {
-        crate::sketch::rescale(&mut report, k, crate::sketch::Source::Logged, &[], None);
+        let source = crate::sketch::Source::Logged;
+        crate::sketch::rescale(&mut report, k, source, &per_coord, signal_coords);
     } else if let Some(p) = &scores.projection {
         let source = crate::sketch::Source::Computed { full_dim: p.dim() };
-        crate::sketch::rescale(&mut report, p.k(), source, &[], None);
+        crate::sketch::rescale(&mut report, p.k(), source, &per_coord, signal_coords);
     }
     Ok(report)
 }
