@@ -202,6 +202,9 @@ fn outer_of_full(s: ArrayView2<f64>, u: ArrayView2<f64>, v: ArrayView2<f64>) -> 
 }
 
 #[cfg(test)]
+mod network_check;
+
+#[cfg(test)]
 mod tests {
     use super::*;
     use rand::SeedableRng;
