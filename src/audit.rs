@@ -299,6 +299,10 @@ pub fn collect(
         v.explained_variance = fitted.value();
     }
     let mut warnings = reader.warnings().clone();
+    if cfg.fitted_values() {
+        // The fitted critic or the value network gave every truncated end a bootstrap value.
+        warnings.remove("truncated_without_bootstrap");
+    }
     if let Some(c) = &clip {
         c.warn(&mut warnings);
     }

@@ -50,6 +50,11 @@ impl Warnings {
         }
     }
 
+    /// Drops a finding that a later stage made moot.
+    pub fn remove(&mut self, code: &str) {
+        self.items.remove(code);
+    }
+
     pub fn iter(&self) -> impl Iterator<Item = &Warning> {
         self.items.values()
     }

@@ -72,8 +72,9 @@ fn f32_exact(x: f64) -> f64 {
 }
 
 impl Actor {
-    /// Random weights, uniform in +-gain sqrt(6 / (in + out)) (Glorot and Bengio 2010), zero
-    /// biases except a small random offset, rounded to f32.
+    /// Random weights, uniform in +-gain sqrt(6 / (in + out)) (Glorot and Bengio 2010; the
+    /// output layer's range a tenth of that, as trainers shrink it so that the first actions
+    /// stay near zero), biases uniform in +-0.1, rounded to f32.
     pub fn random(
         sizes: &[usize],
         activation: Activation,
@@ -83,9 +84,11 @@ impl Actor {
     ) -> Actor {
         let layers = sizes
             .windows(2)
-            .map(|w| {
+            .enumerate()
+            .map(|(l, w)| {
                 let (n_in, n_out) = (w[0], w[1]);
-                let r = gain * (6.0 / (n_in + n_out) as f64).sqrt();
+                let last = if l + 2 == sizes.len() { 0.1 } else { 1.0 };
+                let r = last * gain * (6.0 / (n_in + n_out) as f64).sqrt();
                 Layer {
                     w: (0..n_in * n_out)
                         .map(|_| f32_exact(rng.random_range(-r..r)))

@@ -9,4 +9,5 @@ mod fuzz_inputs;
 mod gate;
 mod inspect;
 mod policy;
+mod projection;
 mod sweep;
