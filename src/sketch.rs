@@ -94,6 +94,22 @@ fn relative_range(
     (!rel.is_empty()).then_some((lo, hi))
 }
 
+/// Rescales the squared bias quoted in a note ("squared bias alone (X)", "estimated bias^2
+/// (X)"), which stats.rs wrote on the k columns' scale.
+fn rescale_note(note: &str, s: f64) -> String {
+    for key in ["squared bias alone (", "estimated bias^2 ("] {
+        if let Some(i) = note.find(key) {
+            let start = i + key.len();
+            if let Some(len) = note[start..].find(')')
+                && let Ok(x) = note[start..start + len].parse::<f64>()
+            {
+                return format!("{}{:.3e}{}", &note[..start], x * s, &note[start + len..]);
+            }
+        }
+    }
+    note.to_string()
+}
+
 /// Rescales a report computed on k sketch columns into estimates of the full-gradient figures,
 /// and reports the projection's own precision from `per_coord` (one entry per estimator) and
 /// the signal's per-coordinate values, when given.
@@ -121,6 +137,7 @@ pub fn rescale(
         e.gradient_norm_interval.high *= r;
         e.bias_norm_interval.low *= r;
         e.bias_norm_interval.high *= r;
+        e.notes = e.notes.iter().map(|n| rescale_note(n, s)).collect();
     }
     let (rows, signal_se) = precision(per_coord, signal);
     let measured = match (
@@ -180,6 +197,19 @@ mod tests {
         assert!((se - (5.0f64 / 12.0).sqrt()).abs() < 1e-15);
         assert_eq!(mean_and_se(&[1.0]), None);
         assert_eq!(mean_and_se(&[1.0, f64::NAN]), None);
+    }
+
+    #[test]
+    fn quoted_squared_biases_are_rescaled() {
+        let n =
+            "bias-limited: the squared bias alone (3.200e1) keeps snr below 1 at any batch size";
+        assert_eq!(
+            super::rescale_note(n, 0.25),
+            "bias-limited: the squared bias alone (8.000e0) keeps snr below 1 at any batch size"
+        );
+        let m = "episodes_for_snr assumes no bias: the estimated bias^2 (4.000e2) would make";
+        assert!(super::rescale_note(m, 0.5).contains("(2.000e2)"));
+        assert_eq!(super::rescale_note("no number here", 0.5), "no number here");
     }
 
     const D: usize = 48;
