@@ -75,7 +75,7 @@ pub fn scores(reader: &LogReader, cfg: &AuditConfig) -> Result<Scores> {
             vec![plain_group(logged)],
         ),
     };
-    let k = projection_size(cfg, full_dim)?;
+    let k = projection_size(cfg, full_dim, policy.is_some())?;
     let clip = match &policy {
         Some((path, _)) => crate::policy::clipping::from_description(path, schema)?,
         None => None,
@@ -107,8 +107,9 @@ fn plain_group(d: usize) -> ThetaGroup {
     }
 }
 
-/// The number of projections to use, or None for exact scores.
-fn projection_size(cfg: &AuditConfig, d: usize) -> Result<Option<usize>> {
+/// The number of projections to use, or None for exact scores. `auto` projects scores that
+/// gradaudit computes from a policy; logged score columns only on an explicit `--project K`.
+fn projection_size(cfg: &AuditConfig, d: usize, from_policy: bool) -> Result<Option<usize>> {
     use crate::policy::projection::ProjectMode;
     match (cfg.sketch, cfg.project) {
         (Some(_), ProjectMode::K(_)) => Err(Error::usage(
@@ -116,6 +117,7 @@ fn projection_size(cfg: &AuditConfig, d: usize) -> Result<Option<usize>> {
              with --project K",
         )),
         (Some(_), _) => Ok(None),
+        (None, ProjectMode::Auto) if !from_policy => Ok(None),
         (None, mode) => Ok(mode.k_for(d)),
     }
 }

@@ -338,3 +338,30 @@ fn clipped_actions_in_the_log_are_warned_about() {
         "{w}"
     );
 }
+
+#[test]
+fn logged_score_columns_are_projected_only_on_request() {
+    let rover = demo("docking_rover.csv");
+    let base = [
+        "audit",
+        &rover,
+        "--resamples",
+        "100",
+        "--splits",
+        "10",
+        "--format",
+        "json",
+    ];
+    let plain = run_json(&base);
+    assert!(plain["input"]["sketch"].is_null());
+    let mut args = base.to_vec();
+    args.extend(["--project", "4"]);
+    let proj = run_json(&args);
+    let sk = &proj["input"]["sketch"];
+    assert_eq!(
+        (sk["k"].as_u64(), sk["full_dim"].as_u64()),
+        (Some(4), Some(8))
+    );
+    assert_eq!(sk["source"], "computed");
+    assert_eq!(proj["input"]["parameters"][0], "projection_0");
+}
