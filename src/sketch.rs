@@ -140,17 +140,16 @@ pub fn rescale(
         e.notes = e.notes.iter().map(|n| rescale_note(n, s)).collect();
     }
     let (rows, signal_se) = precision(per_coord, signal);
-    let measured = match (
-        relative_range(report, &rows, |p| p.variance_se, |e| e.variance),
-        relative_range(report, &rows, |p| p.mse_se, |e| e.mse),
-    ) {
-        (Some(v), Some(m)) => format!(
+    // The variance's relative error is the headline; bias^2 and mse can sit near zero (a
+    // clamped bias), where a relative figure says nothing, so the JSON lists their absolute
+    // standard errors.
+    let measured = match relative_range(report, &rows, |p| p.variance_se, |e| e.variance) {
+        Some((lo, hi)) => format!(
             "; measured from the spread over the {k} projections, the standard error is \
-             {:.1}-{:.1}% of the variance and {:.1}-{:.1}% of the mse across estimators \
-             (sketch.precision in the JSON report lists every figure's)",
-            v.0, v.1, m.0, m.1
+             {lo:.1}-{hi:.1}% of the variance across estimators (sketch.precision in the JSON \
+             report lists every figure's, bias^2 and mse included)"
         ),
-        _ => String::new(),
+        None => String::new(),
     };
     let (source_name, full_dim, what) = match source {
         Source::Logged => ("logged", None, "the score columns are".to_string()),
