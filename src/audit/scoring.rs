@@ -179,9 +179,9 @@ impl<'a> Scorer<'a> {
         }
         if computed {
             let file = reader.file().to_string();
-            let results: Vec<Result<()>> = batch
-                .par_iter_mut()
-                .map(|ep| score_one(s, ep, &file))
+            let results: Vec<Result<()>> = groups(&mut batch)
+                .into_par_iter()
+                .map(|group| score_group(s, group, &file))
                 .collect();
             // The first failure in file order, whatever thread found it.
             results.into_iter().collect::<Result<Vec<()>>>()?;
@@ -189,6 +189,67 @@ impl<'a> Scorer<'a> {
         self.queue.extend(batch);
         Ok(())
     }
+}
+
+/// Steps scored by one call of the network: whole episodes stacked until this many rows, so
+/// that each matrix product is large enough to amortise packing the weights.
+const GROUP_ROWS: usize = 1024;
+
+/// Consecutive runs of episodes of about [`GROUP_ROWS`] steps (at least one episode each). The
+/// grouping depends on the episode lengths only, not on the thread count.
+fn groups(batch: &mut [Episode]) -> Vec<&mut [Episode]> {
+    let mut out = Vec::new();
+    let mut rest = batch;
+    while !rest.is_empty() {
+        let (mut n, mut rows) = (0, 0);
+        while n < rest.len() && (n == 0 || rows + rest[n].len() <= GROUP_ROWS) {
+            rows += rest[n].len();
+            n += 1;
+        }
+        let (head, tail) = rest.split_at_mut(n);
+        out.push(head);
+        rest = tail;
+    }
+    out
+}
+
+/// Scores a group of episodes: one network call over their stacked steps when a network's
+/// scores are projected (each step's score depends on its own row only), else episode by
+/// episode.
+fn score_group(s: &Scores, group: &mut [Episode], file: &str) -> Result<()> {
+    let (Some(proj), Some(p)) = (&s.projection, &s.policy) else {
+        return group.iter_mut().try_for_each(|ep| score_one(s, ep, file));
+    };
+    let Some(net) = p.network() else {
+        return group.iter_mut().try_for_each(|ep| score_one(s, ep, file));
+    };
+    let inputs: Vec<_> = group.iter().map(|ep| p.inputs(ep)).collect();
+    let obs: Vec<_> = inputs.iter().map(|(o, _)| o.view()).collect();
+    let act: Vec<_> = inputs.iter().map(|(_, a)| a.view()).collect();
+    let obs = ndarray::concatenate(ndarray::Axis(0), &obs).expect("same obs width");
+    let act = ndarray::concatenate(ndarray::Axis(0), &act).expect("same act width");
+    let factors = net.score_factors(obs.view(), act.view()).map_err(|mut e| {
+        // Back from a row of the stack to its episode and step.
+        let mut i = 0;
+        while e.step >= group[i].len() {
+            e.step -= group[i].len();
+            i += 1;
+        }
+        p.step_error(&group[i], file, e)
+    })?;
+    let projected = proj.project(&factors);
+    let mut row = 0;
+    for ep in group.iter_mut() {
+        let t = ep.len();
+        ep.scores = projected
+            .slice(ndarray::s![row..row + t, ..])
+            .iter()
+            .copied()
+            .collect();
+        ep.score_dim = proj.k();
+        row += t;
+    }
+    Ok(())
 }
 
 /// Computes (and projects) one episode's scores in place.

@@ -149,13 +149,16 @@ impl Projection {
                     // (u_j . delta_t)(v_j . x_t) for every t and j: two T x K products.
                     let a = delta.dot(&u.t());
                     let b = input.dot(&v.t());
-                    out += &(a * b);
+                    ndarray::Zip::from(&mut out)
+                        .and(&a)
+                        .and(&b)
+                        .for_each(|o, x, y| *o += x * y);
                 }
                 (Block::Outer { u, v }, GroupGrad::Full(s)) => {
                     out += &outer_of_full(s.view(), u.view(), v.view());
                 }
                 (Block::Plain { z }, GroupGrad::Full(s)) => {
-                    out += &s.dot(&z.t());
+                    ndarray::linalg::general_mat_mul(1.0, s, &z.t(), 1.0, &mut out);
                 }
                 (Block::Plain { .. }, GroupGrad::Outer { .. }) => {
                     unreachable!("a factored gradient belongs to a two-dimensional group")

@@ -365,3 +365,27 @@ fn logged_score_columns_are_projected_only_on_request() {
     assert_eq!(sk["source"], "computed");
     assert_eq!(proj["input"]["parameters"][0], "projection_0");
 }
+
+#[test]
+fn a_step_the_network_cannot_score_is_named_the_same_with_or_without_projection() {
+    // The demo's actions exceed +-1 at some steps; a tanh-squashed head cannot have sampled
+    // them, and must say at which row.
+    let text = std::fs::read_to_string(demo(ARM_POLICY)).unwrap();
+    let mut desc: serde_json::Value = serde_json::from_str(&text).unwrap();
+    desc["head"]["kind"] = "tanh_gaussian".into();
+    desc["weights"] = demo("reaching_arm.safetensors").into();
+    let dir = Dir::new("squashed");
+    let path = dir.write("squashed.json", desc.to_string().as_bytes());
+    let errs: Vec<String> = ["exact", "16"]
+        .iter()
+        .map(|k| {
+            let mut args = arm_audit(&["--project", k]);
+            args[3] = path.clone();
+            let (code, _, err) = run(&args.iter().map(String::as_str).collect::<Vec<_>>());
+            assert_eq!(code, 2, "{err}");
+            err
+        })
+        .collect();
+    assert!(errs[0].contains(", line "), "{}", errs[0]);
+    assert_eq!(errs[0], errs[1]);
+}
