@@ -60,6 +60,9 @@ pub struct InspectReport {
     pub gamma: f64,
     pub critic: crate::critic::CriticQuality,
     pub warnings: Warnings,
+    /// The policy given with --policy, as checked against the log's columns.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub policy: Option<crate::policy::summary::PolicySummary>,
 }
 
 pub fn run(
@@ -127,5 +130,6 @@ pub fn run(
             fitted_features: critic.map(|c| c.features()),
         },
         warnings: reader.warnings().clone(),
+        policy: None,
     })
 }

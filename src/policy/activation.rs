@@ -1,6 +1,6 @@
 //! Elementwise activations of dense layers and their derivatives.
 //!
-//! For y = f(z): tanh f' = 1 - y^2; relu f' = 1[z > 0]; elu (alpha) y = z for z > 0 else
+//! For y = f(z): tanh f' = 1 - y^2; relu f' = 1(z > 0); elu (alpha) y = z for z > 0 else
 //! alpha (e^z - 1), f' = 1 or y + alpha; leaky relu (slope s) f' = 1 or s; silu (swish)
 //! y = z sigmoid(z), f' = sigmoid(z) (1 + z (1 - sigmoid(z))); sigmoid f' = y (1 - y);
 //! softplus y = ln(1 + e^z), f' = sigmoid(z). At the kinks of relu and leaky relu (z = 0) the
@@ -132,22 +132,22 @@ impl Activation {
         }
     }
 
-    /// y = f(z) elementwise, into a new array.
-    pub fn forward(&self, z: &Array2<f64>) -> Array2<f64> {
+    /// Replaces z by y = f(z) elementwise; with `slopes`, also returns f'(z) (for the
+    /// backward pass, which then needs neither z nor y).
+    pub fn forward_in_place(&self, z: &mut Array2<f64>, slopes: bool) -> Option<Array2<f64>> {
         if *self == Activation::Identity {
-            return z.clone();
+            return None;
         }
-        z.mapv(|v| self.apply(v))
-    }
-
-    /// Multiplies the gradient `g` with respect to y by f'(z), in place.
-    pub fn backward_in_place(&self, g: &mut Array2<f64>, z: &Array2<f64>, y: &Array2<f64>) {
-        if *self == Activation::Identity {
-            return;
+        if !slopes {
+            z.mapv_inplace(|v| self.apply(v));
+            return None;
         }
-        Zip::from(g)
-            .and(z)
-            .and(y)
-            .for_each(|g, &z, &y| *g *= self.derivative(z, y));
+        let mut d = Array2::zeros(z.raw_dim());
+        Zip::from(z).and(&mut d).for_each(|z, d| {
+            let y = self.apply(*z);
+            *d = self.derivative(*z, y);
+            *z = y;
+        });
+        Some(d)
     }
 }

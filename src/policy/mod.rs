@@ -177,6 +177,22 @@ impl Policy {
         Error::input(at, message)
     }
 
+    /// A network policy's factored per-step gradients for one episode (see
+    /// `Network::score_factors`), with errors placed at the row's line and column; None for a
+    /// linear policy.
+    pub fn score_factors_episode(
+        &self,
+        ep: &Episode,
+        file: &str,
+    ) -> Option<Result<Vec<GroupGrad>>> {
+        let net = self.network()?;
+        let (obs, act) = self.inputs(ep);
+        Some(
+            net.score_factors(obs.view(), act.view())
+                .map_err(|e| self.step_error(ep, file, e)),
+        )
+    }
+
     /// Replaces the episode's scores by the policy's; errors name the offending row and column.
     /// (`_first_line` is kept for callers; the episode's own step lines are used.)
     pub fn score_episode(&self, ep: &mut Episode, file: &str, _first_line: u64) -> Result<()> {
@@ -221,3 +237,5 @@ impl Policy {
 
 #[cfg(test)]
 mod tests;
+#[cfg(test)]
+mod tests_network;

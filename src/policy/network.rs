@@ -64,7 +64,7 @@ pub struct Param {
     pub value: Array2<f64>,
 }
 
-/// A dense layer: indices of its weight [out, in] and bias [out] in the parameter list.
+/// A dense layer: indices of its weight `[out, in]` and bias `[out]` in the parameter list.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Dense {
     pub weight: usize,
@@ -97,10 +97,11 @@ pub struct Mlp {
 }
 
 /// The trunk's intermediate values over T steps: `inputs[l]` is the input of layer l (so
-/// `inputs[0]` is the normalised obs and `inputs[L]` the trunk output), `pre[l]` its z.
+/// `inputs[0]` is the normalised obs and `inputs[L]` the trunk output), `slopes[l]` the
+/// activation's derivative f'(z_l) (None for the identity, or when not asked for).
 pub(crate) struct Pass {
     pub inputs: Vec<Array2<f64>>,
-    pub pre: Vec<Array2<f64>>,
+    pub slopes: Vec<Option<Array2<f64>>>,
 }
 
 impl Dense {
@@ -137,35 +138,42 @@ impl Mlp {
             .sum()
     }
 
-    pub(crate) fn pass(&self, obs: ArrayView2<f64>) -> Pass {
+    /// The forward pass; `slopes` keeps f'(z) of every layer for a backward pass.
+    pub(crate) fn pass(&self, obs: ArrayView2<f64>, slopes: bool) -> Pass {
         let x0 = match &self.norm {
             Some(n) => n.apply(obs),
             None => obs.to_owned(),
         };
         let mut pass = Pass {
             inputs: vec![x0],
-            pre: Vec::with_capacity(self.layers.len()),
+            slopes: Vec::with_capacity(self.layers.len()),
         };
         for layer in &self.layers {
-            let z = layer.affine(&self.params, &pass.inputs.last().expect("x_0").view());
-            pass.inputs.push(layer.activation.forward(&z));
-            pass.pre.push(z);
+            let mut z = layer.affine(&self.params, &pass.inputs.last().expect("x_0").view());
+            pass.slopes
+                .push(layer.activation.forward_in_place(&mut z, slopes));
+            pass.inputs.push(z);
         }
         pass
     }
 }
 
 /// A plain MLP forward pass, usable for a value network: T x n_in -> T x n_out (the last
-/// layer's output after its activation).
+/// layer's output after its activation; normalisation, when the description has it, is
+/// applied here, so pass the raw obs columns).
 ///
-/// For a critic, load the description with `Mlp::from_json` / `Mlp::load` (family
-/// `mlp_value`: `features`, optional `normalize`, `layers` whose last layer has one output
-/// and activation `identity`, and `weights` or inline `tensors`, exactly as for an actor), build
-/// the T x n_in input with `Mlp::inputs(ep)`-style gathering of the listed obs columns (the
-/// description's `features`, in order, raw: `forward` normalises), and call
-/// `forward(&mlp, obs.view())`; column 0 of the result is V(s_t) for each step.
+/// For a critic: write an `"family": "mlp_value"` description (the actor's fields `features`,
+/// `normalize`, `layers`, `weights` / `tensors`; no head, theta or actions; its last layer has
+/// one output and activation `identity`), load it with
+/// `policy::spec::ValueNet::load(path, reader.schema())`, and either call
+/// `value_net.values(&episode)` (V(s_t) for each step, an Array1) or
+/// `forward(&value_net.mlp, policy::gather(&ep.obs, ep.obs_dim, &value_net.features).view())`
+/// and read column 0.
 pub fn forward(mlp: &Mlp, obs: ArrayView2<f64>) -> Array2<f64> {
-    mlp.pass(obs).inputs.pop().expect("x_0 is always present")
+    mlp.pass(obs, false)
+        .inputs
+        .pop()
+        .expect("x_0 is always present")
 }
 
 /// An MLP actor: trunk, head and the selection of tensors that forms theta.
@@ -220,7 +228,7 @@ impl Network {
         obs: ArrayView2<f64>,
         act: ArrayView2<f64>,
     ) -> Result<Array1<f64>, StepError> {
-        let pass = self.mlp.pass(obs);
+        let pass = self.mlp.pass(obs, false);
         let h = pass.inputs.last().expect("x_0");
         self.head.log_density(&self.mlp.params, h, act)
     }
@@ -235,37 +243,50 @@ impl Network {
         act: ArrayView2<f64>,
     ) -> Result<Vec<GroupGrad>, StepError> {
         let params = &self.mlp.params;
-        let pass = self.mlp.pass(obs);
-        let h = pass.inputs.last().expect("x_0");
-        let head = self.head.backward(params, h, act)?;
+        let mut pass = self.mlp.pass(obs, true);
+        let n_layers = self.mlp.layers.len();
+        let head = self.head.backward(params, &pass.inputs[n_layers], act)?;
         let mut grads: Vec<Option<GroupGrad>> = vec![None; params.len()];
         let wanted = |p: usize| self.theta_params.contains(&p);
-        let mut dh: Option<Array2<f64>> = None;
-        for (layer, delta) in &head.layers {
-            self.take_dense(layer, delta, h, &mut grads);
-            let down = delta.dot(&params[layer.weight].value);
-            dh = Some(match dh {
-                Some(acc) => acc + down,
-                None => down,
-            });
-        }
-        if let Some(p) = head.param {
-            grads[p.0] = Some(GroupGrad::Full(p.1));
-        }
         let lowest = self
             .mlp
             .layers
             .iter()
             .position(|l| wanted(l.weight) || l.bias.is_some_and(wanted));
-        if let (Some(lowest), Some(mut g)) = (lowest, dh) {
-            for l in (lowest..self.mlp.layers.len()).rev() {
+        // d log pi / d x_L, needed only when a trunk layer is in theta.
+        let mut g: Option<Array2<f64>> = None;
+        let n_head = head.layers.len();
+        for (i, (layer, delta)) in head.layers.into_iter().enumerate() {
+            if lowest.is_some() {
+                let down = delta.dot(&params[layer.weight].value);
+                g = Some(match g {
+                    Some(acc) => acc + down,
+                    None => down,
+                });
+            }
+            if i + 1 == n_head && self.theta_params.contains(&layer.weight) {
+                // The trunk's backward pass needs only the slopes: x_L can move.
+                let x = std::mem::take(&mut pass.inputs[n_layers]);
+                self.take_dense_owned(layer, delta, x, &mut grads);
+            } else {
+                self.take_dense(layer, delta, &pass.inputs[n_layers], &mut grads);
+            }
+        }
+        if let Some((p, full)) = head.param {
+            grads[p] = Some(GroupGrad::Full(full));
+        }
+        if let (Some(lowest), Some(mut g)) = (lowest, g) {
+            for l in (lowest..n_layers).rev() {
                 let layer = &self.mlp.layers[l];
-                layer
-                    .activation
-                    .backward_in_place(&mut g, &pass.pre[l], &pass.inputs[l + 1]);
-                self.take_dense(layer, &g, &pass.inputs[l], &mut grads);
-                if l > lowest {
-                    g = g.dot(&params[layer.weight].value);
+                if let Some(d) = &pass.slopes[l] {
+                    g *= d;
+                }
+                let next = (l > lowest).then(|| g.dot(&params[layer.weight].value));
+                let input = std::mem::take(&mut pass.inputs[l]);
+                self.take_dense_owned(layer, g, input, &mut grads);
+                match next {
+                    Some(n) => g = n,
+                    None => break,
                 }
             }
         }
@@ -276,22 +297,41 @@ impl Network {
             .collect())
     }
 
-    /// Records the gradients of a dense layer's weight and bias, when they are in theta.
+    /// Records the gradients of a head layer's weight and bias, when they are in theta.
     fn take_dense(
         &self,
         layer: &Dense,
-        delta: &Array2<f64>,
+        delta: Array2<f64>,
         input: &Array2<f64>,
         grads: &mut [Option<GroupGrad>],
     ) {
-        if self.theta_params.contains(&layer.weight) {
-            grads[layer.weight] = Some(GroupGrad::Outer {
-                delta: delta.clone(),
-                input: input.clone(),
-            });
-        }
-        if let Some(b) = layer.bias.filter(|b| self.theta_params.contains(b)) {
-            grads[b] = Some(GroupGrad::Full(delta.clone()));
+        let input = if self.theta_params.contains(&layer.weight) {
+            input.clone()
+        } else {
+            Array2::zeros((0, 0))
+        };
+        self.take_dense_owned(layer, delta, input, grads);
+    }
+
+    /// Records the gradients of a dense layer's weight and bias, when they are in theta,
+    /// moving `delta` and `input` into them (the bias gets a copy when both are in theta).
+    fn take_dense_owned(
+        &self,
+        layer: &Dense,
+        delta: Array2<f64>,
+        input: Array2<f64>,
+        grads: &mut [Option<GroupGrad>],
+    ) {
+        let weight = self.theta_params.contains(&layer.weight);
+        let bias = layer.bias.filter(|b| self.theta_params.contains(b));
+        match (weight, bias) {
+            (true, Some(b)) => {
+                grads[b] = Some(GroupGrad::Full(delta.clone()));
+                grads[layer.weight] = Some(GroupGrad::Outer { delta, input });
+            }
+            (true, None) => grads[layer.weight] = Some(GroupGrad::Outer { delta, input }),
+            (false, Some(b)) => grads[b] = Some(GroupGrad::Full(delta)),
+            (false, None) => {}
         }
     }
 

@@ -1,7 +1,8 @@
 //! The MLP description (`family: "mlp"` for an actor, `"mlp_value"` for a critic) and its
 //! validation into a `Network` / `Mlp`: every tensor is named explicitly, looked up in the
 //! safetensors file or the inline `tensors`, and checked against the shape its place needs
-//! (dense weights [out, in], biases [out], log sigma [m] or [1, m], statistics [n_obs]).
+//! (dense weights `[out, in]`, biases `[out]`, log sigma `[m]` or `[1, m]`, statistics
+//! `[n_obs]`).
 //!
 //! theta is every parameter tensor by default, or the tensors listed in `theta`; either way
 //! in network order (trunk layers first to last, weight before bias, then the head: mean,
@@ -90,12 +91,10 @@ struct DenseWire {
     clip: Option<[f64; 2]>,
 }
 
-#[derive(Debug, Deserialize)]
-#[serde(untagged)]
-enum SigmaWire {
-    Tensor(String),
-    Layer(DenseWire),
-}
+/// A Gaussian head's log sigma: a tensor name, or a layer object. Kept as JSON until the
+/// head is built, so that a bad layer object gets serde's own message (an untagged enum's
+/// would only say that no variant matched).
+type SigmaWire = serde_json::Value;
 
 #[derive(Debug, Deserialize)]
 #[serde(tag = "kind", rename_all = "snake_case", deny_unknown_fields)]
@@ -260,27 +259,16 @@ fn gaussian_head(
 ) -> Result<Head> {
     let mean = head_dense(b, mean, h, Some(m), "the mean layer")?;
     let sigma = match sigma {
-        SigmaWire::Tensor(name) => Sigma::Param(b.add(name, Want::Vector(m), "log sigma")?),
-        SigmaWire::Layer(d) => {
-            let clip = match d.clip {
-                Some([lo, hi]) if lo.is_finite() && hi.is_finite() && lo < hi => Some((lo, hi)),
-                Some(_) => {
-                    return Err(b
-                        .ctx
-                        .bad("the log sigma layer's \"clip\" must be [lo, hi], finite, lo < hi"));
-                }
-                None => None,
-            };
-            let role = "the log sigma layer";
-            let layer = b.dense(
-                &d.weight,
-                d.bias.as_deref(),
-                h,
-                Some(m),
-                Activation::Identity,
-                role,
-            )?;
-            Sigma::Layer { layer, clip }
+        serde_json::Value::String(name) => {
+            Sigma::Param(b.add(name, Want::Vector(m), "log sigma")?)
+        }
+        other => {
+            let d: DenseWire = serde_json::from_value(other.clone()).map_err(|e| {
+                b.ctx.bad(format!(
+                    "\"log_sigma\" is a tensor name or a layer {{\"weight\", \"bias\", \"clip\"}}: {e}"
+                ))
+            })?;
+            sigma_layer(b, &d, h, m)?
         }
     };
     Ok(Head::Gaussian {
@@ -288,6 +276,23 @@ fn gaussian_head(
         sigma,
         squash,
     })
+}
+
+/// A log-sigma output layer, clipped to [lo, hi] when `clip` is given.
+fn sigma_layer(b: &mut Builder, d: &DenseWire, h: usize, m: usize) -> Result<Sigma> {
+    let clip = match d.clip {
+        Some([lo, hi]) if lo.is_finite() && hi.is_finite() && lo < hi => Some((lo, hi)),
+        Some(_) => {
+            return Err(b
+                .ctx
+                .bad("the log sigma layer's \"clip\" must be [lo, hi], finite, lo < hi"));
+        }
+        None => None,
+    };
+    let role = "the log sigma layer";
+    let bias = d.bias.as_deref();
+    let layer = b.dense(&d.weight, bias, h, Some(m), Activation::Identity, role)?;
+    Ok(Sigma::Layer { layer, clip })
 }
 
 /// The head and the action columns it reads.
@@ -381,7 +386,7 @@ fn select_theta(b: &Builder, listed: Option<&[String]>) -> Result<Vec<usize>> {
         .collect())
 }
 
-/// Component names of a tensor, row-major: "name[i,j]" (2-D) or "name[k]" (1-D).
+/// Component names of a tensor, row-major: `name[i,j]` (2-D) or `name[k]` (1-D).
 pub fn component_names(name: &str, shape: &[usize]) -> Vec<String> {
     match shape {
         [r, c] => (0..*r)

@@ -180,3 +180,93 @@ fn every_corpus_file_behaves_as_its_class_says() {
         );
     }
 }
+
+/// Bad policy descriptions and weights (tests/fixtures/bad_policy/), each audited against the
+/// fixture log.csv there: (description, failure class, fragments the message must contain).
+/// actor.safetensors (a 2 -> 3 tanh -> Gaussian actor, F32, plus an I64 tensor 'steps' and a
+/// spare [3, 3] one) and corrupt.safetensors (a header that is not JSON) are the weights they
+/// name.
+const POLICY_CASES: &[(&str, &str, &[&str])] = &[
+    (
+        "missing_tensor.json",
+        "tensor missing from the weights file",
+        &[
+            "actor.safetensors",
+            "no tensor named 'pi.9.weight' (the weight of layer 1)",
+            "did you mean 'pi.0.weight'",
+        ],
+    ),
+    (
+        "wrong_shape.json",
+        "tensor of the wrong shape",
+        &[
+            "actor.safetensors",
+            "tensor 'spare.weight' (the weight of the mean layer) has shape [3, 3], expected [2, 3]",
+        ],
+    ),
+    (
+        "wrong_dtype.json",
+        "tensor of a dtype that is not a float",
+        &["actor.safetensors", "tensor 'steps' has dtype I64"],
+    ),
+    (
+        "corrupt_weights.json",
+        "weights file that is not safetensors",
+        &["corrupt.safetensors", "not a readable safetensors file"],
+    ),
+    (
+        "missing_weights_file.json",
+        "weights file that does not exist",
+        &["nowhere.safetensors"],
+    ),
+    (
+        "squashed_action.json",
+        "action at the bound of a tanh-squashed head",
+        &[
+            "log.csv, line 4, column 7 ('act_0')",
+            "episode '0', step 2",
+            "outside (-1, 1)",
+        ],
+    ),
+    (
+        "discrete_action.json",
+        "discrete action outside the range (linear policy)",
+        &[
+            "log.csv, line 2, column 8 ('act_1')",
+            "episode '0', step 0",
+            "action -0.3",
+        ],
+    ),
+];
+
+#[test]
+fn every_bad_policy_file_gives_its_message() {
+    let dir = format!("{}/tests/fixtures/bad_policy", env!("CARGO_MANIFEST_DIR"));
+    let listed: Vec<&str> = POLICY_CASES.iter().map(|c| c.0).collect();
+    for entry in std::fs::read_dir(&dir).unwrap() {
+        let name = entry.unwrap().file_name().into_string().unwrap();
+        if name.ends_with(".json") {
+            assert!(
+                listed.contains(&name.as_str()),
+                "{name} has no expectation in POLICY_CASES"
+            );
+        }
+    }
+    let log = format!("{dir}/log.csv");
+    for (file, class, wants) in POLICY_CASES {
+        let path = format!("{dir}/{file}");
+        let (code, out, err) = run(&["audit", &log, "--policy", &path, "--resamples", "50"]);
+        assert_eq!(code, 2, "{class} ({file}): {err}{out}");
+        for w in *wants {
+            assert!(
+                err.contains(w),
+                "{class}: message should contain {w:?}: {err}"
+            );
+        }
+        assert!(!err.contains("panicked"), "{class}: {err}");
+        assert!(
+            err.lines().count() <= 3,
+            "{class}: one short message: {err}"
+        );
+    }
+}

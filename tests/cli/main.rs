@@ -8,6 +8,7 @@ mod corpus;
 mod fuzz_inputs;
 mod gate;
 mod inspect;
+mod network;
 mod policy;
 mod projection;
 mod sweep;
