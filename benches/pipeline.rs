@@ -1,11 +1,14 @@
-//! Criterion benchmarks of the three hot stages: reading a log, the per-episode estimator pass,
-//! and the bootstrap's weighted sums. End-to-end timings are in scripts/bench.sh.
+//! Criterion benchmarks of the hot stages: reading a log, the per-episode estimator pass, the
+//! bootstrap's weighted sums, and the statistics at three score widths. End-to-end timings are
+//! in scripts/bench.sh.
 
 use criterion::{Criterion, Throughput, criterion_group, criterion_main};
+use gradaudit::audit;
 use gradaudit::contrib::{Plan, Work};
 use gradaudit::estimator::Estimator;
 use gradaudit::log::{LogReader, Progress, ReadOptions};
 use gradaudit::resample;
+use gradaudit::stats::{self, StatsConfig};
 use ndarray::Array2;
 use std::fmt::Write;
 use std::hint::black_box;
@@ -117,5 +120,56 @@ fn resampler(c: &mut Criterion) {
     g.finish();
 }
 
-criterion_group!(benches, reader, estimators, resampler);
+/// The statistics streamed over estimators (bootstrap and half splits from the summaries,
+/// then every figure): 1,000 episodes, B = 2000, 200 splits, rtg / total / td / gae:0.9 / the
+/// mean baseline, at three score widths. Its cost should grow linearly with d.
+fn statistics(c: &mut Criterion) {
+    let mut g = c.benchmark_group("statistics");
+    g.sample_size(10);
+    for d in [64, 256, 1024] {
+        let plan = Plan::new(
+            vec![
+                Estimator::Rtg,
+                Estimator::Total,
+                Estimator::Td,
+                Estimator::Gae(0.9),
+                Estimator::MeanBaseline,
+            ],
+            0.99,
+            d,
+        );
+        let width = plan.width();
+        let contrib = Array2::from_shape_fn((1000, width), |(i, j)| {
+            if j == width - 1 {
+                50.0 // episode length T
+            } else {
+                ((i * 7 + j) as f64 * 0.01).sin()
+            }
+        });
+        let source = audit::Resampler {
+            plan: &plan,
+            contrib: contrib.view(),
+            seed: 1,
+            resamples: 2000,
+            splits: 200,
+        };
+        let point = contrib.mean_axis(ndarray::Axis(0)).unwrap().to_vec();
+        let cfg = StatsConfig {
+            episodes: 1000,
+            confidence: 0.95,
+            target_snr: 1.0,
+            per_coord: false,
+        };
+        g.throughput(Throughput::Elements(d as u64));
+        g.bench_function(format!("5 estimators, N = 1000, B = 2000, d = {d}"), |b| {
+            b.iter(|| {
+                let (st, _) = stats::summarise_with(&plan, 0, &point, &source, &cfg);
+                black_box(st[1].mse)
+            })
+        });
+    }
+    g.finish();
+}
+
+criterion_group!(benches, reader, estimators, resampler, statistics);
 criterion_main!(benches);

@@ -380,6 +380,80 @@ pub fn resample_all(data: &Collected, cfg: &AuditConfig) -> Resampled {
     }
 }
 
+/// The replicate gradients of an audit, computed from the contribution rows one estimator at
+/// a time (bootstrap and half splits as in [`resample_all`], same seeds and blocks), so no
+/// replicate rows of the full width and no B x estimators x d array are held.
+pub struct Resampler<'a> {
+    pub plan: &'a Plan,
+    pub contrib: ndarray::ArrayView2<'a, f64>,
+    pub seed: u64,
+    pub resamples: usize,
+    pub splits: usize,
+}
+
+impl Resampler<'_> {
+    fn gradients<W>(&self, k: usize, rows: usize, weights: W) -> (Array2<f64>, usize)
+    where
+        W: Fn(usize, &mut [f64]) + Sync,
+    {
+        let grad = |mean: &[f64], out: &mut [f64]| {
+            self.plan.gradient_from_columns(k, mean, out)
+                == crate::contrib::GradNote::ConstantReturns
+        };
+        let cols = self.plan.columns(k);
+        resample::weighted_gradients(self.contrib, rows, cols, self.plan.d, weights, grad)
+    }
+}
+
+impl stats::ReplicateGradients for Resampler<'_> {
+    fn bootstrap(&self, k: usize) -> (Array2<f64>, usize) {
+        let seed = self.seed;
+        self.gradients(k, self.resamples, |b, w| {
+            resample::bootstrap_counts(seed, b as u64, w)
+        })
+    }
+
+    fn halves(&self, k: usize) -> Array2<f64> {
+        let seed = self.seed;
+        let (grads, _) = self.gradients(k, 2 * self.splits, |r, w| {
+            let (mut first, mut second) = (vec![0.0; w.len()], vec![0.0; w.len()]);
+            resample::half_split(seed, (r / 2) as u64, &mut first, &mut second);
+            w.copy_from_slice(if r % 2 == 0 { &first } else { &second });
+        });
+        grads
+    }
+}
+
+/// Every estimator's statistics and the signal, streamed over the estimators (see
+/// [`Resampler`]); `per_coord` asks for the per-coordinate terms of the squared figures.
+pub fn statistics(
+    data: &Collected,
+    plan: &Plan,
+    reference: usize,
+    cfg: &AuditConfig,
+    per_coord: bool,
+) -> (Vec<stats::EstimatorStats>, stats::Signal) {
+    let contrib = &data.contrib;
+    let point: Vec<f64> = contrib
+        .mean_axis(ndarray::Axis(0))
+        .expect("collect() guarantees n >= 2")
+        .to_vec();
+    let source = Resampler {
+        plan,
+        contrib: contrib.view(),
+        seed: cfg.seed,
+        resamples: cfg.resamples,
+        splits: cfg.splits,
+    };
+    let scfg = StatsConfig {
+        episodes: contrib.nrows(),
+        confidence: cfg.confidence,
+        target_snr: cfg.target_snr,
+        per_coord,
+    };
+    stats::summarise_with(plan, reference, &point, &source, &scfg)
+}
+
 /// Runs the whole audit over an opened log.
 pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
     cfg.validate()?;
@@ -415,26 +489,9 @@ pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
     let n = data.contrib.nrows();
     let mut warnings = data.warnings.clone();
     few_episodes_warning(n, &mut warnings);
-    let Resampled {
-        point,
-        replicates,
-        halves,
-    } = resample_all(&data, cfg);
+    let per_coord = cfg.sketch.is_some() || scores.projection.is_some();
+    let (stats, signal) = statistics(&data, &plan, reference, cfg, per_coord);
     let input = data.input;
-    let scfg = StatsConfig {
-        episodes: n,
-        confidence: cfg.confidence,
-        target_snr: cfg.target_snr,
-        per_coord: cfg.sketch.is_some() || scores.projection.is_some(),
-    };
-    let (stats, signal) = stats::summarise(
-        &plan,
-        reference,
-        &point,
-        replicates.view(),
-        halves.view(),
-        &scfg,
-    );
 
     let per_coord: Vec<crate::sketch::CoordFigures> = plan
         .estimators

@@ -108,6 +108,20 @@ impl Plan {
         Some((mean[start + 2 * k], mean[start + 2 * k + 1]))
     }
 
+    /// The columns of a mean row that [`Plan::gradient`] reads for estimator k: its own block
+    /// for a per-episode estimator, the auxiliary block for a batch-dependent one.
+    pub fn columns(&self, k: usize) -> std::ops::Range<usize> {
+        match self.offsets[k] {
+            Some(off) => off..off + self.d,
+            None => {
+                let aux = self
+                    .aux
+                    .expect("batch-dependent estimators have the auxiliary block");
+                aux..aux + 2 * self.d + 3
+            }
+        }
+    }
+
     /// Length of one contribution row.
     pub fn width(&self) -> usize {
         self.width
@@ -185,20 +199,18 @@ impl Plan {
 
     /// Estimator k's batch gradient from a weighted mean row (sum_i w_i row_i / sum_i w_i).
     pub fn gradient(&self, k: usize, mean: &[f64], out: &mut [f64]) -> GradNote {
+        self.gradient_from_columns(k, &mean[self.columns(k)], out)
+    }
+
+    /// [`Plan::gradient`] from only the columns [`Plan::columns`] of the mean row.
+    pub fn gradient_from_columns(&self, k: usize, cols: &[f64], out: &mut [f64]) -> GradNote {
         let d = self.d;
-        if let Some(off) = self.offsets[k] {
-            out.copy_from_slice(&mean[off..off + d]);
+        if self.offsets[k].is_some() {
+            out.copy_from_slice(cols);
             return GradNote::Ok;
         }
-        let aux = self
-            .aux
-            .expect("batch-dependent estimators have the auxiliary block");
-        let (s, h) = (&mean[aux..aux + d], &mean[aux + d..aux + 2 * d]);
-        let (a, q, t) = (
-            mean[aux + 2 * d],
-            mean[aux + 2 * d + 1],
-            mean[aux + 2 * d + 2],
-        );
+        let (s, h) = (&cols[..d], &cols[d..2 * d]);
+        let (a, q, t) = (cols[2 * d], cols[2 * d + 1], cols[2 * d + 2]);
         let b = a / t;
         for j in 0..d {
             out[j] = s[j] - b * h[j];

@@ -7,6 +7,7 @@ use ndarray::{Array2, ArrayView2, Axis, s};
 use rand::{RngExt, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use rayon::prelude::*;
+use std::ops::Range;
 
 /// Replicates per matrix product: large enough to amortise packing, small enough to keep the
 /// weight block (BLOCK x N) in cache-friendly size.
@@ -90,6 +91,69 @@ where
     out
 }
 
+/// Replicates per block of [`weighted_gradients`]: larger than [`BLOCK`] because each block
+/// packs the contribution columns afresh for its matrix product; fixed, so results do not
+/// depend on the thread count.
+const GRADIENT_BLOCK: usize = 128;
+
+/// Gradients of weighted mean rows, computed without holding the mean rows: for each block of
+/// rows, the weighted means of only the columns `cols` are formed (one matrix product), and
+/// `grad(means, out_row)` turns each block row of those columns into a d-vector, row r of the
+/// result. Returns the gradients (rows x d) and how many calls of `grad` returned true.
+pub fn weighted_gradients<W, G>(
+    contrib: ArrayView2<f64>,
+    rows: usize,
+    cols: Range<usize>,
+    d: usize,
+    weights: W,
+    grad: G,
+) -> (Array2<f64>, usize)
+where
+    W: Fn(usize, &mut [f64]) + Sync,
+    G: Fn(&[f64], &mut [f64]) -> bool + Sync,
+{
+    let n = contrib.nrows();
+    let sub = contrib.slice(s![.., cols.clone()]);
+    let mut out = Array2::<f64>::zeros((rows, d));
+    let flagged = out
+        .axis_chunks_iter_mut(Axis(0), GRADIENT_BLOCK)
+        .into_par_iter()
+        .enumerate()
+        .map(|(block, mut chunk)| {
+            let m = chunk.nrows();
+            let mut w = Array2::<f64>::zeros((m, n));
+            for (j, row) in w.outer_iter_mut().enumerate() {
+                let row = row
+                    .into_slice()
+                    .expect("rows of a fresh array are contiguous");
+                weights(block * GRADIENT_BLOCK + j, row);
+            }
+            let mut mean = Array2::<f64>::zeros((m, cols.len()));
+            ndarray::linalg::general_mat_mul(1.0, &w, &sub, 0.0, &mut mean);
+            let mut flagged = 0;
+            for (j, (mut row, o)) in mean
+                .outer_iter_mut()
+                .zip(chunk.outer_iter_mut())
+                .enumerate()
+            {
+                let total: f64 = w.slice(s![j, ..]).sum();
+                if total > 0.0 {
+                    row.mapv_inplace(|x| x / total);
+                }
+                let row = row
+                    .into_slice()
+                    .expect("rows of a fresh array are contiguous");
+                let o = o
+                    .into_slice()
+                    .expect("rows of a fresh array are contiguous");
+                flagged += usize::from(grad(row, o));
+            }
+            flagged
+        })
+        .sum();
+    (out, flagged)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -112,6 +176,29 @@ mod tests {
         half_split(1, 0, &mut f, &mut s);
         assert_eq!(f.iter().sum::<f64>(), 5.0);
         assert!(f.iter().zip(&s).all(|(a, b)| a + b == 1.0));
+    }
+
+    #[test]
+    fn weighted_gradients_match_the_gradients_of_weighted_means() {
+        let c = Array2::from_shape_fn((9, 5), |(i, j)| ((i * 5 + j) as f64 * 0.37).sin());
+        let weights = |r: usize, w: &mut [f64]| bootstrap_counts(2, r as u64, w);
+        // A "gradient" of columns 1..4: their values doubled, flagged when the first is > 0.
+        let rows = 300; // more than two blocks
+        let full = weighted_means(c.view(), rows, weights);
+        let (got, flagged) = weighted_gradients(c.view(), rows, 1..4, 3, weights, |m, o| {
+            for j in 0..3 {
+                o[j] = 2.0 * m[j];
+            }
+            m[0] > 0.0
+        });
+        for r in 0..rows {
+            for j in 0..3 {
+                assert_eq!(got[[r, j]], 2.0 * full[[r, 1 + j]]);
+            }
+        }
+        let want = (0..rows).filter(|&r| full[[r, 1]] > 0.0).count();
+        assert_eq!(flagged, want);
+        assert!(flagged > 0 && flagged < rows);
     }
 
     #[test]

@@ -30,9 +30,10 @@ use rand_distr::{Distribution, StandardNormal};
 pub use super::network::{GroupGrad, ThetaGroup};
 
 /// Policies with more parameters than this are projected unless `--project` says otherwise.
-/// The exact statistics cost O(B d^2) per estimator (the bias noise floor needs tr(S^2)) and the
-/// summaries N x L d memory; at d = 256 an audit of 17 estimators over 5,000 episodes holds
-/// about 170 MB of summaries and still runs in seconds.
+/// The exact statistics cost about B d min(B, d) per estimator (the bias noise floor needs
+/// tr(S^2)) and the summaries N x L d memory; at d = 256 an audit of 17 estimators over 5,000
+/// episodes holds about 170 MB of summaries and runs in seconds, at d = 5,000 it takes minutes
+/// and gigabytes, while K = 64 projections cost what 64 logged score columns cost.
 pub const PROJECT_ABOVE: usize = 256;
 
 /// Projections used when the threshold is crossed: the worst-case relative error of the
