@@ -1,4 +1,4 @@
-//! Simulates rollout logs for gradaudit's demos and benchmarks, in two scenarios of our own:
+//! Simulates rollout logs for gradaudit's demos and benchmarks, in scenarios of our own:
 //!
 //! * `rover`: a docking rover. State p in R^2 (offset from the dock), action u in R^2 (a force)
 //!   from a linear-Gaussian policy u ~ N(W phi(p) + c, diag(sigma^2)), quadratic cost, a time
@@ -8,6 +8,9 @@
 //!   features decides divert (1) or pass (0). Heavy parcels belong in the divert bin (+1 when
 //!   routed right, -1 when wrong); diverting into a full bin jams the gate (-10, terminated);
 //!   the end of the shift also terminates. No critic is recorded.
+//! * `arm`: a two-link arm reaching a target with an MLP Gaussian actor, and `actor`: benchmark
+//!   logs of any MLP actor size (see rollouts/net_scenarios.rs). `--weights-out` writes the
+//!   actor's weights (safetensors), `--policy-out` its description.
 //!
 //! Obs and actions are quantised to 1e-6 before use, so the logged (6-decimal) values are the
 //! exact inputs of the logged scores.
@@ -21,10 +24,17 @@ use rand_distr::{Distribution, StandardNormal};
 use std::fs::File;
 use std::io::{BufWriter, Write};
 
+#[path = "rollouts/actor.rs"]
+mod actor;
+#[path = "rollouts/net_scenarios.rs"]
+mod net_scenarios;
+
 #[derive(Debug, Clone, Copy, ValueEnum)]
 enum Scenario {
     Rover,
     Diverter,
+    Arm,
+    Actor,
 }
 
 /// Simulate a rollout log for gradaudit.
@@ -54,9 +64,34 @@ struct Args {
     /// the time limit: used for benchmark logs of exact size)
     #[arg(long, default_value_t = 0.1)]
     dock_radius: f64,
-    /// Also write the policy parameters as JSON here
+    /// Also write the policy parameters as JSON here (arm, actor: the network description)
     #[arg(long)]
     policy_out: Option<String>,
+    /// Arm, actor: write the actor's weights here (safetensors, F32)
+    #[arg(long)]
+    weights_out: Option<String>,
+    /// Arm, actor: hidden layer widths, e.g. 64,64 (default arm 8,8; actor 64,64)
+    #[arg(long, value_delimiter = ',')]
+    hidden: Option<Vec<usize>>,
+    /// Arm, actor: hidden activation
+    #[arg(long, value_enum, default_value_t = actor::Activation::Tanh)]
+    activation: actor::Activation,
+    /// Actor: observation dimension
+    #[arg(long, default_value_t = 4)]
+    obs_dim: usize,
+    /// Actor: action dimension
+    #[arg(long, default_value_t = 2)]
+    act_dim: usize,
+    /// Arm, actor: no score columns (obs and act only)
+    #[arg(long)]
+    no_scores: bool,
+    /// Actor: write only the first N score components
+    #[arg(long)]
+    score_cols: Option<usize>,
+    /// Arm: log the clipped (applied) actions instead of the sampled ones, with their scores
+    /// (the mistake gradaudit warns about)
+    #[arg(long)]
+    log_clipped: bool,
 }
 
 fn q6(x: f64) -> f64 {
@@ -299,6 +334,34 @@ fn main() -> std::io::Result<()> {
     let policy = match a.scenario {
         Scenario::Rover => rover(&a, &mut rng, &mut out)?,
         Scenario::Diverter => diverter(&a, &mut rng, &mut out)?,
+        Scenario::Arm | Scenario::Actor => {
+            let (net, obs, act, bounds) = if let Scenario::Arm = a.scenario {
+                (
+                    net_scenarios::arm(&a, &mut rng, &mut out)?,
+                    4,
+                    2,
+                    Some(net_scenarios::ARM_LIMIT),
+                )
+            } else {
+                (
+                    net_scenarios::actor(&a, &mut rng, &mut out)?,
+                    a.obs_dim,
+                    a.act_dim,
+                    None,
+                )
+            };
+            let weights = a
+                .weights_out
+                .clone()
+                .unwrap_or_else(|| "weights.safetensors".into());
+            if a.weights_out.is_some() {
+                net.write_safetensors(&weights)?;
+            }
+            let file = std::path::Path::new(&weights)
+                .file_name()
+                .map_or(weights.clone(), |f| f.to_string_lossy().into_owned());
+            net_scenarios::description(&net, obs, act, &file, bounds)
+        }
     };
     out.w.flush()?;
     if let Some(path) = &a.policy_out {
@@ -306,6 +369,8 @@ fn main() -> std::io::Result<()> {
         let scenario = match a.scenario {
             Scenario::Rover => "docking rover",
             Scenario::Diverter => "parcel diverter gate",
+            Scenario::Arm => "two-link reaching arm",
+            Scenario::Actor => "benchmark",
         };
         v["note"] = serde_json::json!(
             format!(

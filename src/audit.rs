@@ -41,6 +41,10 @@ pub struct AuditConfig {
     pub sketch: Option<usize>,
     /// A cross-fitted critic replacing the log's value column (see critic.rs).
     pub critic: Option<crate::critic::Critic>,
+    /// Whether to project a policy network's scores (policy/projection.rs).
+    pub project: crate::policy::projection::ProjectMode,
+    /// A value network description computing V(s_t) (critic/net.rs).
+    pub value_net: Option<String>,
 }
 
 /// Where score vectors come from when both are available.
@@ -48,13 +52,6 @@ pub struct AuditConfig {
 pub enum ScoresFrom {
     Policy,
     Columns,
-}
-
-/// The score vectors of a run: their dimension, names, and the policy that computes them.
-pub struct Scores {
-    pub dim: usize,
-    pub names: Vec<String>,
-    pub policy: Option<crate::policy::Policy>,
 }
 
 impl Default for AuditConfig {
@@ -73,6 +70,8 @@ impl Default for AuditConfig {
             scores_from: None,
             sketch: None,
             critic: None,
+            project: crate::policy::projection::ProjectMode::Auto,
+            value_net: None,
         }
     }
 }
@@ -85,8 +84,19 @@ pub const DEFAULT_SEED: u64 = 20_240_917;
 pub const FEW_EPISODES: usize = 20;
 
 impl AuditConfig {
+    /// Whether values come from elsewhere than the log's value column (a fitted critic or a
+    /// value network), so that value-based estimators are available.
+    pub fn fitted_values(&self) -> bool {
+        self.critic.is_some() || self.value_net.is_some()
+    }
+
     /// Checks values that the option parser cannot.
     pub fn validate(&self) -> Result<()> {
+        if self.critic.is_some() && self.value_net.is_some() {
+            return Err(Error::usage(
+                "--fit-value and --value-net both give V(s_t); choose one",
+            ));
+        }
         if !(0.0..=1.0).contains(&self.gamma) {
             return Err(Error::usage(format!(
                 "--gamma {} must lie in [0, 1]",
@@ -244,45 +254,8 @@ impl Ids {
     }
 }
 
-/// Where the score vectors come from: the log's score columns or a policy file.
-pub fn scores(reader: &LogReader, cfg: &AuditConfig) -> Result<Scores> {
-    let schema = reader.schema();
-    let columns = || Scores {
-        dim: schema.score_dim(),
-        names: schema
-            .scores
-            .iter()
-            .map(|&c| schema.headers[c].clone())
-            .collect(),
-        policy: None,
-    };
-    match (&cfg.policy, schema.score_dim(), cfg.scores_from) {
-        (None, 0, _) => Err(Error::usage(format!(
-            "{}: the log has no score columns, and gradients need the score vector \
-             grad log pi(a_t | s_t) of every step; log them as score_0..score_{{d-1}} (or name \
-             their prefix with --score-prefix), or give --policy FILE to compute them from the \
-             obs and act columns",
-            reader.file()
-        ))),
-        (None, _, Some(ScoresFrom::Policy)) => {
-            Err(Error::usage("--scores-from policy needs --policy FILE"))
-        }
-        (None, _, _) | (Some(_), _, Some(ScoresFrom::Columns)) => Ok(columns()),
-        (Some(_), d, None) if d > 0 => Err(Error::usage(format!(
-            "{}: the log has {d} score columns and a policy file was given; say which scores to \
-             use with --scores-from policy or --scores-from columns",
-            reader.file()
-        ))),
-        (Some(path), _, _) => {
-            let policy = crate::policy::Policy::load(path, schema)?;
-            Ok(Scores {
-                dim: policy.dim(),
-                names: policy.parameters.clone(),
-                policy: Some(policy),
-            })
-        }
-    }
-}
+mod scoring;
+pub use scoring::{Scorer, Scores, scores};
 
 /// The result of the single pass: one contribution row per episode, in canonical order.
 pub struct Collected {
@@ -341,14 +314,24 @@ pub fn collect(
         crate::critic::ExplainedVariance::default(),
     );
     let mut buf = Vec::new();
-    while let Some(mut ep) = reader.next_episode()? {
-        if let Some(policy) = &scores.policy {
-            let first = ep.first_line;
-            policy.score_episode(&mut ep, reader.file(), first)?;
+    let value_net = cfg
+        .value_net
+        .as_deref()
+        .map(|path| crate::critic::net::ValueCritic::load(path, reader.schema()))
+        .transpose()?;
+    let mut clip = scores.clip.clone();
+    let mut scorer = Scorer::new(scores);
+    while let Some(mut ep) = scorer.next(&mut reader)? {
+        if let Some(c) = &mut clip {
+            c.push(&ep);
         }
         recorded.push_episode(&ep, plan.gamma, &mut buf);
         if let Some(critic) = &cfg.critic {
             critic.apply(&mut ep);
+            fitted.push_episode(&ep, plan.gamma, &mut buf);
+        }
+        if let Some(v) = &value_net {
+            v.apply(&mut ep);
             fitted.push_episode(&ep, plan.gamma, &mut buf);
         }
         input.episodes += 1;
@@ -381,6 +364,7 @@ pub fn collect(
     input.rows = reader.rows();
     input.score_dim = plan.d;
     input.parameters = scores.names.clone();
+    input.value_net = value_net.as_ref().map(|v| v.summary());
     input.scores_from = if scores.policy.is_some() {
         "policy"
     } else {
@@ -393,7 +377,7 @@ pub fn collect(
             .has(Role::Value)
             .then(|| recorded.value())
             .flatten(),
-        fitted_explained_variance: fitted.value(),
+        fitted_explained_variance: fitted.value().filter(|_| cfg.critic.is_some()),
         fitted_folds: cfg.critic.as_ref().map(|c| c.folds()),
         fitted_features: cfg.critic.as_ref().map(|c| c.features()),
     };
@@ -409,10 +393,21 @@ pub fn collect(
     drop(ids);
     permute_rows(&mut flat, width, &order);
     let contrib = Array2::from_shape_vec((n, width), flat).expect("n x width values");
+    if let Some(v) = input.value_net.as_mut() {
+        v.explained_variance = fitted.value();
+    }
+    let mut warnings = reader.warnings().clone();
+    if cfg.fitted_values() {
+        // The fitted critic or the value network gave every truncated end a bootstrap value.
+        warnings.remove("truncated_without_bootstrap");
+    }
+    if let Some(c) = &clip {
+        c.warn(&mut warnings);
+    }
     Ok(Collected {
         contrib,
         input,
-        warnings: reader.warnings().clone(),
+        warnings,
     })
 }
 
@@ -580,7 +575,7 @@ pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
         reader.schema(),
         cfg.estimators.as_deref(),
         cfg.reference,
-        cfg.critic.is_some(),
+        cfg.fitted_values(),
     )?;
     let reference = estimators
         .iter()
@@ -592,10 +587,24 @@ pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
     let n = data.contrib.nrows();
     let mut warnings = data.warnings.clone();
     few_episodes_warning(n, &mut warnings);
-    let (stats, signal) = statistics(&data, &plan, reference, cfg, false);
+    let per_coord = cfg.sketch.is_some() || scores.projection.is_some();
+    let (stats, signal) = statistics(&data, &plan, reference, cfg, per_coord);
     let input = data.input;
 
     let refs = ReferenceFigures::of(&stats[reference], &signal);
+    let per_coord: Vec<crate::sketch::CoordFigures> = plan
+        .estimators
+        .iter()
+        .zip(&stats)
+        .filter_map(|(e, s)| {
+            s.per_coord.as_ref().map(|c| crate::sketch::CoordFigures {
+                estimator: e.to_string(),
+                variance: c.variance.clone(),
+                bias_sq: c.bias_sq.clone(),
+                mse: c.mse.clone(),
+            })
+        })
+        .collect();
     let mut estimators: Vec<EstimatorRow> = plan
         .estimators
         .iter()
@@ -605,6 +614,7 @@ pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
         .collect();
     crate::report::sort_rows(&mut estimators);
     let verdict = Verdict::from_rows(&estimators, refs.signal);
+    let signal_coords = signal.per_coord.as_deref();
     let mut report = AuditReport {
         tool: crate::report::Tool::current(),
         input,
@@ -626,7 +636,11 @@ pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
         warnings,
     };
     if let Some(k) = cfg.sketch {
-        crate::sketch::rescale(&mut report, k);
+        let source = crate::sketch::Source::Logged;
+        crate::sketch::rescale(&mut report, k, source, &per_coord, signal_coords);
+    } else if let Some(p) = &scores.projection {
+        let source = crate::sketch::Source::Computed { full_dim: p.dim() };
+        crate::sketch::rescale(&mut report, p.k(), source, &per_coord, signal_coords);
     }
     Ok(report)
 }

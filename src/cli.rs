@@ -187,6 +187,17 @@ pub struct AuditOptions {
     /// score vector: report estimates of the full-gradient figures
     #[arg(long, value_name = "K")]
     pub score_sketch: Option<usize>,
+
+    /// Project a policy network's scores onto K random directions inside gradaudit: `auto`
+    /// projects onto 64 when the policy has more than 256 parameters, `exact` never projects,
+    /// a number K always does (see the README, 'Large networks')
+    #[arg(long, default_value = "auto", value_name = "K|auto|exact")]
+    pub project: String,
+
+    /// Compute V(s_t) from this value network (description JSON, family mlp_value, with its
+    /// safetensors weights) for the value-based estimators, instead of a value column
+    #[arg(long, value_name = "FILE")]
+    pub value_net: Option<String>,
 }
 
 #[derive(Debug, Clone, Copy, ValueEnum)]
@@ -514,6 +525,9 @@ impl AuditOptions {
                 ScoresFromArg::Columns => crate::audit::ScoresFrom::Columns,
             }),
             sketch: self.score_sketch,
+            project: crate::policy::projection::ProjectMode::parse(&self.project)
+                .map_err(|e| Error::usage(format!("--project {e}")))?,
+            value_net: self.value_net.clone(),
             budget: log.budget()?,
             ..AuditConfig::default()
         };

@@ -15,6 +15,8 @@
 //! Fitting is one streaming pass (per-fold sums X^T X and X^T y only) and applying it another:
 //! the caller reads the log twice.
 
+pub mod net;
+
 use crate::episode::{End, Episode};
 use crate::error::{Error, Result};
 use crate::estimator::scan;

@@ -19,6 +19,8 @@ const BLOCK: usize = 32;
 pub enum Stream {
     Bootstrap = 1,
     HalfSplit = 2,
+    /// Random projections of a large policy's scores (policy/projection.rs).
+    Projection = 3,
 }
 
 /// The RNG of draw `index` in `stream` for a run seeded with `seed`.

@@ -1,13 +1,23 @@
-//! Scores logged as random-projection sketches. A deep policy has millions of parameters and
-//! nobody logs its full score vector; instead the log holds k fixed random projections
-//! p_tj = z_j . grad log pi(a_t | s_t), with the z_j drawn once per run and E[z z^T] = I.
+//! Scores as random-projection sketches. A deep policy has millions of parameters and nobody
+//! audits its full score vector; instead every step's score is replaced by k projections
+//! p_tj = z_j . grad log pi(a_t | s_t), with the z_j drawn once per run, independent, and
+//! E[z z^T] = I. The projections are either logged (`--score-sketch K`: the log's score columns)
+//! or computed by gradaudit from a policy network (`--project`, policy/projection.rs).
 //! Every estimator's gradient projects exactly (sum_t Psi_t p_tj = z_j . g), so the audit runs
 //! unchanged on the k columns, and for any vector v, ||Z v||^2 / k is an unbiased estimate of
 //! ||v||^2 (Hutchinson 1989). Variance, bias^2, MSE and the signal are therefore rescaled by
 //! 1/k to estimate the full-gradient figures; ratios of them (snr, ess, episodes_for_snr) are
 //! unchanged by the rescaling, and cosines are preserved approximately (Johnson-Lindenstrauss).
+//!
+//! Precision of the projection. Each squared figure is a sum over the k projected coordinates,
+//! F = sum_j f_j, and each f_j = z_j^T M z_j (M the figure's matrix: the bootstrap covariance
+//! for the variance, b b^T minus the noise floor for bias^2) is on its own an unbiased estimate
+//! of the full figure tr M, independent across j given the data. The rescaled figure F / k is
+//! their mean, so its standard error is sd_j(f_j) / sqrt(k), measured from the k values
+//! themselves: this holds for any distribution of z (Gaussian or the rank-one blocks of
+//! projection.rs) and any spectrum of M, where sqrt(2 / k) is only the Gaussian worst case.
 
-use crate::report::{AuditReport, Sketch};
+use crate::report::{AuditReport, Sketch, SketchPrecision};
 
 /// Relative standard deviation of ||Z v||^2 / k for Gaussian z and a single direction (the
 /// worst case; spread-out covariances do better): sqrt(2 / k).
@@ -15,8 +25,101 @@ pub fn worst_relative_sd(k: usize) -> f64 {
     (2.0 / k as f64).sqrt()
 }
 
-/// Rescales a report computed on k sketch columns into estimates of the full-gradient figures.
-pub fn rescale(report: &mut AuditReport, k: usize) {
+/// Mean and standard error sd_j / sqrt(k) of k per-projection estimates (None below 2 values
+/// or when a value is not finite).
+pub fn mean_and_se(values: &[f64]) -> Option<(f64, f64)> {
+    let k = values.len();
+    if k < 2 || values.iter().any(|v| !v.is_finite()) {
+        return None;
+    }
+    let mean = values.iter().sum::<f64>() / k as f64;
+    let var = values.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / (k as f64 - 1.0);
+    Some((mean, (var / k as f64).sqrt()))
+}
+
+/// One estimator's squared figures per projected coordinate (unscaled: the coordinate's own
+/// contribution to the figure computed on the k columns).
+#[derive(Debug, Clone, PartialEq)]
+pub struct CoordFigures {
+    pub estimator: String,
+    pub variance: Vec<f64>,
+    pub bias_sq: Vec<f64>,
+    pub mse: Vec<f64>,
+}
+
+/// Where the projections came from, for the report.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Source {
+    /// The log's score columns (`--score-sketch`).
+    Logged,
+    /// Computed from a policy network of this many parameters (`--project`).
+    Computed { full_dim: usize },
+}
+
+/// The projection's standard errors from the per-coordinate figures.
+fn precision(
+    per_coord: &[CoordFigures],
+    signal: Option<&[f64]>,
+) -> (Vec<SketchPrecision>, Option<f64>) {
+    let se = |v: &[f64]| mean_and_se(v).map(|(_, se)| se);
+    let rows = per_coord
+        .iter()
+        .map(|c| SketchPrecision {
+            estimator: c.estimator.clone(),
+            variance_se: se(&c.variance),
+            bias_sq_se: se(&c.bias_sq),
+            mse_se: se(&c.mse),
+        })
+        .collect();
+    (rows, signal.and_then(se))
+}
+
+/// The range over estimators of se / figure, in percent, for the note.
+fn relative_range(
+    report: &AuditReport,
+    rows: &[SketchPrecision],
+    pick: fn(&SketchPrecision) -> Option<f64>,
+    figure: fn(&crate::report::EstimatorRow) -> Option<f64>,
+) -> Option<(f64, f64)> {
+    let rel: Vec<f64> = rows
+        .iter()
+        .filter_map(|p| {
+            let e = report.estimators.iter().find(|e| e.name == p.estimator)?;
+            let (se, f) = (pick(p)?, figure(e)?);
+            (f > 0.0).then(|| 100.0 * se / f)
+        })
+        .collect();
+    let lo = rel.iter().copied().fold(f64::INFINITY, f64::min);
+    let hi = rel.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+    (!rel.is_empty()).then_some((lo, hi))
+}
+
+/// Rescales the squared bias quoted in a note ("squared bias alone (X)", "estimated bias^2
+/// (X)"), which stats.rs wrote on the k columns' scale.
+fn rescale_note(note: &str, s: f64) -> String {
+    for key in ["squared bias alone (", "estimated bias^2 ("] {
+        if let Some(i) = note.find(key) {
+            let start = i + key.len();
+            if let Some(len) = note[start..].find(')')
+                && let Ok(x) = note[start..start + len].parse::<f64>()
+            {
+                return format!("{}{:.3e}{}", &note[..start], x * s, &note[start + len..]);
+            }
+        }
+    }
+    note.to_string()
+}
+
+/// Rescales a report computed on k sketch columns into estimates of the full-gradient figures,
+/// and reports the projection's own precision from `per_coord` (one entry per estimator) and
+/// the signal's per-coordinate values, when given.
+pub fn rescale(
+    report: &mut AuditReport,
+    k: usize,
+    source: Source,
+    per_coord: &[CoordFigures],
+    signal: Option<&[f64]>,
+) {
     let s = 1.0 / k as f64;
     let r = s.sqrt();
     let scale = |x: &mut Option<f64>, by: f64| *x = x.map(|v| v * by);
@@ -37,17 +140,41 @@ pub fn rescale(report: &mut AuditReport, k: usize) {
         scale(&mut e.gradient_norm, r);
         scale_iv(&mut e.gradient_norm_interval, r);
         scale_iv(&mut e.bias_norm_interval, r);
+        e.notes = e.notes.iter().map(|n| rescale_note(n, s)).collect();
     }
+    let (rows, signal_se) = precision(per_coord, signal);
+    // The variance's relative error is the headline; bias^2 and mse can sit near zero (a
+    // clamped bias), where a relative figure says nothing, so the JSON lists their absolute
+    // standard errors.
+    let measured = match relative_range(report, &rows, |p| p.variance_se, |e| e.variance) {
+        Some((lo, hi)) => format!(
+            "; measured from the spread over the {k} projections, the standard error is \
+             {lo:.1}-{hi:.1}% of the variance across estimators (sketch.precision in the JSON \
+             report lists every figure's, bias^2 and mse included)"
+        ),
+        None => String::new(),
+    };
+    let (source_name, full_dim, what) = match source {
+        Source::Logged => ("logged", None, "the score columns are".to_string()),
+        Source::Computed { full_dim } => (
+            "computed",
+            Some(full_dim),
+            format!("the policy's {full_dim} scores were projected onto"),
+        ),
+    };
     report.input.sketch = Some(Sketch {
         k,
+        source: source_name.to_string(),
+        full_dim,
+        signal_se,
+        precision: rows,
         note: format!(
-            "scores are {k} random projections: variance, bias^2, mse, signal and the norms are \
+            "{what} {k} random projections: variance, bias^2, mse, signal and the norms are \
              estimates of the full-gradient figures (Hutchinson's estimator, unbiased for the \
-             squared figures, relative error up to about {:.0}% for k = {k}, less when the \
-             variance is spread over many directions); snr, ess and episodes_for_snr are \
-             ratios and carry the same relative error at most; cosine_half is preserved \
-             approximately (Johnson-Lindenstrauss); the gradient vector shown is the projected \
-             one",
+             squared figures; Gaussian worst case {:.0}% relative error for k = {k}{measured}); \
+             snr, ess and episodes_for_snr are ratios and carry about the same relative error; \
+             cosine_half is preserved approximately (Johnson-Lindenstrauss); the gradient vector \
+             shown is the projected one",
             100.0 * worst_relative_sd(k)
         ),
     });
@@ -55,12 +182,37 @@ pub fn rescale(report: &mut AuditReport, k: usize) {
 
 #[cfg(test)]
 mod tests {
+    use super::mean_and_se;
     use crate::audit::{AuditConfig, run};
     use crate::estimator::Estimator;
     use crate::testkit::reader;
     use rand::SeedableRng;
     use rand_distr::{Distribution, StandardNormal};
     use std::fmt::Write;
+
+    // The standard error of a mean of k values, sd / sqrt(k) with the k - 1 sample variance:
+    // for 1, 2, 3, 4 the variance is 5/3, so se = sqrt(5/12).
+    #[test]
+    fn standard_error_of_the_mean_over_projections() {
+        let (m, se) = mean_and_se(&[1.0, 2.0, 3.0, 4.0]).unwrap();
+        assert_eq!(m, 2.5);
+        assert!((se - (5.0f64 / 12.0).sqrt()).abs() < 1e-15);
+        assert_eq!(mean_and_se(&[1.0]), None);
+        assert_eq!(mean_and_se(&[1.0, f64::NAN]), None);
+    }
+
+    #[test]
+    fn quoted_squared_biases_are_rescaled() {
+        let n =
+            "bias-limited: the squared bias alone (3.200e1) keeps snr below 1 at any batch size";
+        assert_eq!(
+            super::rescale_note(n, 0.25),
+            "bias-limited: the squared bias alone (8.000e0) keeps snr below 1 at any batch size"
+        );
+        let m = "episodes_for_snr assumes no bias: the estimated bias^2 (4.000e2) would make";
+        assert!(super::rescale_note(m, 0.5).contains("(2.000e2)"));
+        assert_eq!(super::rescale_note("no number here", 0.5), "no number here");
+    }
 
     const D: usize = 48;
     const K: usize = 16;

@@ -258,8 +258,13 @@ pub fn run(reader: LogReader, cfg: &SweepConfig) -> Result<SweepReport> {
     }
     let scores = audit::scores(&reader, &cfg.audit)?;
     let d = scores.dim;
+    if scores.projection.is_some() {
+        return Err(Error::usage(
+            "sweep does not rescale projected scores; give --project exact (or audit, which does)",
+        ));
+    }
     let needs_value = cfg.grid.iter().any(|p| !p.estimator.needs().is_empty());
-    if needs_value && !reader.schema().has(Role::Value) && cfg.audit.critic.is_none() {
+    if needs_value && !reader.schema().has(Role::Value) && !cfg.audit.fitted_values() {
         return Err(Error::usage(format!(
             "{}: sweeping {} needs the value column (a critic's V(s_t)), which the log lacks; \
              --fit-value fits one",

@@ -36,6 +36,25 @@ impl Warnings {
             });
     }
 
+    /// Counts `n` occurrences at once (for findings decided after the whole log is read).
+    pub fn add_many(
+        &mut self,
+        code: &'static str,
+        message: impl Into<String>,
+        first: Option<String>,
+        n: u64,
+    ) {
+        if n > 0 {
+            self.add(code, message, first);
+            self.items.get_mut(code).expect("just added").count += n - 1;
+        }
+    }
+
+    /// Drops a finding that a later stage made moot.
+    pub fn remove(&mut self, code: &str) {
+        self.items.remove(code);
+    }
+
     pub fn iter(&self) -> impl Iterator<Item = &Warning> {
         self.items.values()
     }

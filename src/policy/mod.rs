@@ -17,11 +17,13 @@
 //! network.rs, activation.rs, heads.rs (networks), summary.rs (what `inspect` shows).
 
 pub mod activation;
+pub mod clipping;
 pub mod description;
 pub mod family;
 pub mod heads;
 pub mod linear;
 pub mod network;
+pub mod projection;
 pub mod spec;
 pub mod summary;
 pub mod weights;

@@ -46,6 +46,10 @@ struct Wire {
     head: Option<HeadWire>,
     #[serde(default)]
     theta: Option<Vec<String>>,
+    /// Actuator limits [low, high] per action (read by clipping.rs).
+    #[serde(default)]
+    #[allow(dead_code)]
+    action_bounds: Option<Vec<[f64; 2]>>,
 }
 
 fn default_eps() -> f64 {

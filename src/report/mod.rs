@@ -65,13 +65,34 @@ pub struct InputSummary {
     pub sketch: Option<Sketch>,
     /// How well the recorded and the fitted critic explain the discounted returns.
     pub critic: crate::critic::CriticQuality,
+    /// The value network behind V(s_t), with --value-net.
+    pub value_net: Option<crate::critic::net::ValueNetSummary>,
 }
 
 /// How the score columns were sketched, and what that means for the figures.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct Sketch {
     pub k: usize,
+    /// `logged` (the log's score columns are projections) or `computed` (gradaudit projected
+    /// the policy network's scores, `--project`).
+    pub source: String,
+    /// The dimension that was projected, when gradaudit did the projecting.
+    pub full_dim: Option<usize>,
+    /// Standard error of the signal from the spread over the K projections.
+    pub signal_se: Option<f64>,
+    /// Each estimator's projection standard errors (see sketch.rs).
+    pub precision: Vec<SketchPrecision>,
     pub note: String,
+}
+
+/// Standard errors, over the K projections, of one estimator's rescaled squared figures: the
+/// precision of the projection itself (not of the data).
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct SketchPrecision {
+    pub estimator: String,
+    pub variance_se: Option<f64>,
+    pub bias_sq_se: Option<f64>,
+    pub mse_se: Option<f64>,
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize)]

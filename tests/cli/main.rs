@@ -13,4 +13,5 @@ mod hardening_numeric;
 mod inspect;
 mod network;
 mod policy;
+mod projection;
 mod sweep;
