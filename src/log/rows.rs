@@ -29,6 +29,8 @@ pub struct Parsed {
     pub ids: Vec<u8>,
     pub vectors: Vec<f64>,
     pub error: Option<Error>,
+    /// How the block's bytes end (only the file's last block can be cut short).
+    pub tail: super::chunks::Tail,
 }
 
 impl Parsed {
@@ -38,6 +40,7 @@ impl Parsed {
         self.ids.clear();
         self.vectors.clear();
         self.error = None;
+        self.tail = super::chunks::Tail::Complete;
     }
 
     pub fn id(&self, row: &Row) -> &[u8] {
@@ -100,7 +103,7 @@ impl<'a> LineCounter<'a> {
             b += 1;
         }
         if b > self.at {
-            self.line += memchr::memchr_iter(b'\n', &self.bytes[self.at..b]).count() as u64;
+            self.line += super::chunks::line_breaks(&self.bytes[self.at..b]);
             self.at = b;
         }
         self.line
@@ -169,39 +172,51 @@ impl RowParser {
     /// Parses into `out` (cleared first), reusing its buffers.
     pub fn parse_into(&self, bytes: &[u8], first_line: u64, out: &mut Parsed) {
         out.clear();
-        // Without quotes or carriage returns a record is a line and a field is the text between
-        // delimiters: split with memchr instead of the general CSV state machine. Blank lines
-        // are skipped, as the csv crate does.
-        if memchr::memchr2(b'"', b'\r', bytes).is_none() {
-            let mut bounds = Vec::with_capacity(self.headers.len() + 1);
-            let mut line_no = first_line;
-            let mut start = 0;
-            while start < bytes.len() {
-                let end = memchr::memchr(b'\n', &bytes[start..]).map_or(bytes.len(), |i| start + i);
-                let line = &bytes[start..end];
-                if !line.is_empty() {
-                    bounds.clear();
-                    bounds.push(0);
-                    bounds.extend(memchr::memchr_iter(self.delimiter, line).map(|i| i + 1));
-                    bounds.push(line.len() + 1);
-                    let rec = Split {
-                        line,
-                        bounds: &bounds,
-                    };
-                    match self.row(&rec, line_no, out) {
-                        Ok(row) => out.rows.push(row),
-                        Err(e) => {
-                            out.error = Some(e);
-                            return;
-                        }
+        // Without quotes a record is a line (ended by \n, \r\n or a lone \r) and a field is
+        // the text between delimiters: split with memchr instead of the general CSV state
+        // machine. Blank lines are skipped, as the csv crate does.
+        if memchr::memchr(b'"', bytes).is_none() {
+            self.parse_lines(bytes, first_line, out);
+        } else {
+            self.parse_csv(bytes, first_line, out);
+        }
+    }
+
+    fn parse_lines(&self, bytes: &[u8], first_line: u64, out: &mut Parsed) {
+        let mut bounds = Vec::with_capacity(self.headers.len() + 1);
+        let mut line_no = first_line;
+        let mut start = 0;
+        while start < bytes.len() {
+            let end =
+                memchr::memchr2(b'\n', b'\r', &bytes[start..]).map_or(bytes.len(), |i| start + i);
+            let line = &bytes[start..end];
+            if !line.is_empty() {
+                bounds.clear();
+                bounds.push(0);
+                bounds.extend(memchr::memchr_iter(self.delimiter, line).map(|i| i + 1));
+                bounds.push(line.len() + 1);
+                let rec = Split {
+                    line,
+                    bounds: &bounds,
+                };
+                match self.row(&rec, line_no, out) {
+                    Ok(row) => out.rows.push(row),
+                    Err(e) => {
+                        out.error = Some(e);
+                        return;
                     }
                 }
-                line_no += 1;
-                start = end + 1;
             }
-            return;
+            line_no += 1;
+            let crlf = bytes.get(end) == Some(&b'\r') && bytes.get(end + 1) == Some(&b'\n');
+            start = end + if crlf { 2 } else { 1 };
         }
+    }
+
+    fn parse_csv(&self, bytes: &[u8], first_line: u64, out: &mut Parsed) {
+        // A buffer no bigger than the block: small blocks (tests, fuzzing) stay cheap.
         let mut rdr = csv::ReaderBuilder::new()
+            .buffer_capacity(bytes.len().clamp(64, 8 << 10))
             .delimiter(self.delimiter)
             .has_headers(false)
             .flexible(true)
@@ -265,6 +280,17 @@ impl RowParser {
                 "the episode id is empty",
             ));
         }
+        if id.len() > crate::limits::MAX_ID_BYTES {
+            return Err(Error::input(
+                self.at(line, Some(self.episode)),
+                format!(
+                    "the episode id \"{}\" is {} bytes long, more than the limit of {} bytes",
+                    fields::shown(id),
+                    id.len(),
+                    crate::limits::MAX_ID_BYTES
+                ),
+            ));
+        }
         let row = Row {
             line,
             id: (out.ids.len(), id.len()),
@@ -317,13 +343,16 @@ mod tests {
         RowParser::new(&schema, "t.csv", b',')
     }
 
-    // The same records with LF endings (memchr path) and CRLF endings (csv-core path, which
-    // the fast path leaves to the general tokenizer) must give the same rows and line numbers,
-    // blank lines included, and the same first error.
+    // The same records with LF endings (memchr path) and with CRLF endings and quoted ids
+    // (csv-core path, which the fast path leaves to the general tokenizer) must give the same
+    // rows and line numbers, blank lines included, and the same first error.
     #[test]
     fn both_tokenizers_agree() {
         let lf = "a,0,1.5,0,,0.25\nb,0,-2,1,,1e-3\n\na,1,3,1,4.5,-7\nc,0,0,1,,2";
-        let crlf = lf.replace('\n', "\r\n");
+        let crlf = lf
+            .replace('\n', "\r\n")
+            .replace("a,", "\"a\",")
+            .replace("b,", "\"b\",");
         let p = parser();
         let (x, y) = (p.parse(lf.as_bytes(), 2), p.parse(crlf.as_bytes(), 2));
         assert!(x.error.is_none() && y.error.is_none());
@@ -339,9 +368,12 @@ mod tests {
         let bad = "a,0,1,0,,1\na,1,x,1,,1\n";
         let (e1, e2) = (
             p.parse(bad.as_bytes(), 2).error.unwrap(),
-            p.parse(bad.replace('\n', "\r\n").as_bytes(), 2)
-                .error
-                .unwrap(),
+            p.parse(
+                bad.replace('\n', "\r\n").replace("a,", "\"a\",").as_bytes(),
+                2,
+            )
+            .error
+            .unwrap(),
         );
         assert_eq!(e1.to_string(), e2.to_string());
         assert!(
