@@ -180,26 +180,9 @@ impl LogReader {
                 "a log starts with a header row such as: episode,step,reward,terminated,truncated,score_0",
             ));
         };
-        // The header is the first record of the first block.
-        let mut csv = csv::ReaderBuilder::new()
-            .delimiter(options.delimiter)
-            .has_headers(false)
-            .flexible(true)
-            .from_reader(first.bytes.as_slice());
-        let mut header = csv::ByteRecord::new();
-        csv.read_byte_record(&mut header).map_err(|e| {
-            Error::input(
-                Position {
-                    file: file.into(),
-                    line: Some(1),
-                    column: None,
-                },
-                format!("cannot read the header row: {:?}", e.kind()),
-            )
-        })?;
-        // Where the data starts, past any line breaks (see rows::LineCounter for why the csv
-        // crate's own line count is not used).
-        let mut data_start = csv.position().byte() as usize;
+        // The header is the first record of the first block; the data start past any line
+        // breaks after it.
+        let (header, mut data_start) = rows::first_record(&first.bytes, options.delimiter);
         while data_start < first.bytes.len() && matches!(first.bytes[data_start], b'\r' | b'\n') {
             data_start += 1;
         }
@@ -614,10 +597,12 @@ fn chunk_error(file: &str, e: ChunkError) -> Error {
     }
 }
 
-/// A byte count for messages: whole MB, or bytes below 1 MB.
+/// A byte count for messages: whole MB, whole kB, or bytes.
 fn size(bytes: usize) -> String {
     if bytes >= 1 << 20 {
         format!("{} MB", bytes >> 20)
+    } else if bytes >= 1 << 10 {
+        format!("{} kB", bytes >> 10)
     } else {
         format!("{bytes} bytes")
     }

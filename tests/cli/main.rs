@@ -7,6 +7,7 @@ mod bad_input;
 mod corpus;
 mod fuzz_inputs;
 mod gate;
+mod hardening_reader;
 mod inspect;
 mod policy;
 mod sweep;
