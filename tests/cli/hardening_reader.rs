@@ -74,10 +74,15 @@ fn a_missing_final_line_break_is_damage_only_when_the_row_leaves_its_episode_ope
 fn stray_quote_parse_does_not_depend_on_the_file_size() {
     let d = Dir::new("stray");
     let mut text = format!("{HEADER}a\"b,0,1,1,0.5\n");
-    for i in 0..6000 {
-        text.push_str(&format!("e{i},0,{},0,0.25\ne{i},1,1,1,-0.5\n", i % 7));
-    }
+    let episodes = |text: &mut String, from: usize| {
+        for i in from..from + 3000 {
+            text.push_str(&format!("e{i},0,{},0,0.25\ne{i},1,1,1,-0.5\n", i % 7));
+        }
+    };
+    episodes(&mut text, 0);
+    // The old cut counted two quotes by here: it cut inside this field.
     text.push_str("\"multi\nline\",0,2,1,1\n");
+    episodes(&mut text, 3000);
     assert!(text.len() > 200_000);
     let path = d.write("stray.csv", text.as_bytes());
     let (code, small, err) = run(&["inspect", "--max-memory", "1", "--format", "json", &path]);
