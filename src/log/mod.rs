@@ -188,41 +188,7 @@ impl LogReader {
             data_start += 1;
         }
         let data_line = first.first_line + chunks::line_breaks(&first.bytes[..data_start]);
-        if header.len() > crate::limits::MAX_COLUMNS {
-            return Err(Error::input(
-                Position {
-                    file: file.into(),
-                    line: Some(1),
-                    column: None,
-                },
-                format!(
-                    "the header has {} columns, more than the limit of {}",
-                    header.len(),
-                    crate::limits::MAX_COLUMNS
-                ),
-            ));
-        }
-        let mut headers = Vec::with_capacity(header.len());
-        for (i, h) in header.iter().enumerate() {
-            // A UTF-8 byte-order mark before the first header is accepted and dropped.
-            let h = if i == 0 {
-                h.strip_prefix(b"\xEF\xBB\xBF").unwrap_or(h)
-            } else {
-                h
-            };
-            let text = std::str::from_utf8(h).map_err(|_| {
-                Error::input(
-                    Position {
-                        file: file.into(),
-                        line: Some(1),
-                        column: Some((i + 1, fields::shown(h))),
-                    },
-                    "header is not valid UTF-8",
-                )
-            })?;
-            headers.push(text.trim().to_string());
-        }
-        let schema = Schema::resolve(&options.columns, headers, file)?;
+        let schema = Schema::resolve(&options.columns, header_names(header, file)?, file)?;
         let layout = Layout {
             value: schema.has(Role::Value),
             q: schema.has(Role::Q),
@@ -384,25 +350,7 @@ impl LogReader {
         }
         let open_count = self.open.len();
         let open = self.open.get_mut(id).expect("inserted above");
-        // checked_add: the step after i64::MAX does not exist (it must not wrap to i64::MIN).
-        if let (Some(step), Some(last)) = (row.step, open.last_step)
-            && last.checked_add(1) != Some(step)
-        {
-            let c = self.schema.column(Role::Step).expect("step present");
-            let what = if step == last {
-                "repeats"
-            } else {
-                "does not follow"
-            };
-            return Err(Error::input_hint(
-                self.parser.at(line, Some(c)),
-                format!(
-                    "step {step} of episode '{}' {what} the previous step {last}",
-                    fields::shown(open.episode.id.as_bytes())
-                ),
-                "steps must increase by exactly 1 within an episode",
-            ));
-        }
+        check_step(&self.parser, &self.schema, open, row)?;
         open.last_step = row.step;
         let ep = &mut open.episode;
         let w = self.parser.vector_width();
@@ -423,21 +371,7 @@ impl LogReader {
                  --max-memory",
             ));
         }
-        let v = &block.vectors[i * w..(i + 1) * w];
-        let (d, o) = (ep.score_dim, ep.obs_dim);
-        ep.scores.extend_from_slice(&v[..d]);
-        ep.obs.extend_from_slice(&v[d..d + o]);
-        ep.act.extend_from_slice(&v[d + o..]);
-        ep.rewards.push(row.reward);
-        for (x, xs) in [
-            (row.value, ep.values.as_mut()),
-            (row.q, ep.q.as_mut()),
-            (row.logp, ep.logp.as_mut()),
-        ] {
-            if let (Some(x), Some(xs)) = (x, xs) {
-                xs.push(x);
-            }
-        }
+        push_step(ep, row, &block.vectors[i * w..(i + 1) * w]);
         if row.terminated || row.truncated {
             ep.end = if row.terminated {
                 End::Terminated
@@ -532,6 +466,49 @@ impl LogReader {
     }
 }
 
+/// Appends a row's values (`v`: its scores, obs and act) to its episode.
+fn push_step(ep: &mut Episode, row: &Row, v: &[f64]) {
+    let (d, o) = (ep.score_dim, ep.obs_dim);
+    ep.scores.extend_from_slice(&v[..d]);
+    ep.obs.extend_from_slice(&v[d..d + o]);
+    ep.act.extend_from_slice(&v[d + o..]);
+    ep.rewards.push(row.reward);
+    for (x, xs) in [
+        (row.value, ep.values.as_mut()),
+        (row.q, ep.q.as_mut()),
+        (row.logp, ep.logp.as_mut()),
+    ] {
+        if let (Some(x), Some(xs)) = (x, xs) {
+            xs.push(x);
+        }
+    }
+}
+
+/// A row's step must be the previous step of its episode plus 1. checked_add: the step after
+/// i64::MAX does not exist (it must not wrap to i64::MIN).
+fn check_step(parser: &RowParser, schema: &Schema, open: &Open, row: &Row) -> Result<()> {
+    let (Some(step), Some(last)) = (row.step, open.last_step) else {
+        return Ok(());
+    };
+    if last.checked_add(1) == Some(step) {
+        return Ok(());
+    }
+    let c = schema.column(Role::Step).expect("step present");
+    let what = if step == last {
+        "repeats"
+    } else {
+        "does not follow"
+    };
+    Err(Error::input_hint(
+        parser.at(row.line, Some(c)),
+        format!(
+            "step {step} of episode '{}' {what} the previous step {last}",
+            fields::shown(open.episode.id.as_bytes())
+        ),
+        "steps must increase by exactly 1 within an episode",
+    ))
+}
+
 /// A 128-bit digest of an episode id: two SipHash-1-3 digests with different fixed keys
 /// (`DefaultHasher::new` is the same in every run, so this is deterministic). Two distinct ids
 /// among n collide with probability about n^2 / 2^129 (1e-25 for ten million episodes).
@@ -574,6 +551,46 @@ fn stream_damage(file: &str, rest: &mut dyn Read) -> Option<Error> {
         },
         Ok(_) => None,
     }
+}
+
+/// The header record's fields as trimmed names: at most [`crate::limits::MAX_COLUMNS`],
+/// valid UTF-8, a byte-order mark before the first dropped.
+fn header_names(header: Vec<Vec<u8>>, file: &str) -> Result<Vec<String>> {
+    if header.len() > crate::limits::MAX_COLUMNS {
+        return Err(Error::input(
+            Position {
+                file: file.into(),
+                line: Some(1),
+                column: None,
+            },
+            format!(
+                "the header has {} columns, more than the limit of {}",
+                header.len(),
+                crate::limits::MAX_COLUMNS
+            ),
+        ));
+    }
+    let mut headers = Vec::with_capacity(header.len());
+    for (i, h) in header.iter().enumerate() {
+        // A UTF-8 byte-order mark before the first header is accepted and dropped.
+        let h = if i == 0 {
+            h.strip_prefix(b"\xEF\xBB\xBF").unwrap_or(h)
+        } else {
+            h
+        };
+        let text = std::str::from_utf8(h).map_err(|_| {
+            Error::input(
+                Position {
+                    file: file.into(),
+                    line: Some(1),
+                    column: Some((i + 1, fields::shown(h))),
+                },
+                "header is not valid UTF-8",
+            )
+        })?;
+        headers.push(text.trim().to_string());
+    }
+    Ok(headers)
 }
 
 /// The first block holding a record (the header): blocks of blank lines before it (possible
