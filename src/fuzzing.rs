@@ -2,23 +2,60 @@
 //! fuzz/ call these, and a regular test replays the committed regression inputs through them,
 //! so CI checks past crashers without a nightly toolchain. Each must return, never panic.
 
+use crate::episode::Episode;
+use crate::log::chunks::Tuning;
 use crate::log::{LogReader, Progress, ReadOptions};
+use crate::warnings::Warnings;
 
-/// Reads a whole log from `bytes` (gzip or plain), discarding the episodes.
+/// Reads a whole log from `bytes` (gzip or plain) twice, in tiny blocks (1 to 29 bytes,
+/// read 1 to 7 bytes at a time, chosen from the input's length) and in one 64 kB block, both
+/// parsed inline (no thread, no large buffer, so thousands of inputs run per second), and
+/// panics if the two outcomes differ: the parse must not depend on where blocks fall.
 pub fn reader(bytes: &[u8]) {
+    let tiny = Tuning::inline(1 + bytes.len() % 29, 1 + bytes.len() % 7);
+    let small = read_log(bytes, tiny);
+    let whole = read_log(bytes, Tuning::inline(1 << 16, 1 << 12));
+    assert_eq!(
+        small, whole,
+        "the parse depends on the block size ({tiny:?})"
+    );
+}
+
+/// What reading a log gives: every episode, the warnings and the row count, or the error.
+pub type Outcome = Result<(Vec<Episode>, Warnings, u64), String>;
+
+/// Reads all of `bytes` (through the same gzip detection as a log opened from a path) with
+/// the given block sizes and a 64 MB budget.
+pub fn read_log(bytes: &[u8], tuning: Tuning) -> Outcome {
+    // Every field given: the default budget reads /proc/meminfo, too slow per input.
     let opts = ReadOptions {
+        delimiter: b',',
+        columns: crate::log::ColumnSpec::default(),
         progress: Progress::Hidden,
-        ..ReadOptions::default()
+        budget: crate::limits::Budget::from_mb(64),
     };
-    // The same gzip detection as a log opened from a path.
-    let Ok((input, _)) =
+    let (mut input, compressed) =
         crate::log::source::decompressed(Box::new(std::io::Cursor::new(bytes.to_vec())))
-    else {
-        return;
-    };
-    if let Ok(mut r) = LogReader::from_reader(input, "fuzz.csv", &opts, None) {
-        while let Ok(Some(_)) = r.next_episode() {}
+            .map_err(|e| e.to_string())?;
+    if compressed {
+        // A damaged stream is reported as damage whatever the bytes before it look like
+        // (LogReader::open decodes again to check): decode it whole first (a few MB at most
+        // from a fuzz input) and read the plain bytes.
+        use std::io::Read;
+        let mut plain = Vec::new();
+        input
+            .take(64 << 20)
+            .read_to_end(&mut plain)
+            .map_err(|e| format!("damaged gzip: {e}"))?;
+        input = Box::new(std::io::Cursor::new(plain));
     }
+    let mut r = LogReader::from_reader_tuned(input, "fuzz.csv", &opts, None, tuning)
+        .map_err(|e| e.to_string())?;
+    let mut episodes = Vec::new();
+    while let Some(ep) = r.next_episode().map_err(|e| e.to_string())? {
+        episodes.push(ep);
+    }
+    Ok((episodes, r.warnings().clone(), r.rows()))
 }
 
 /// Parses a rules file (`gradaudit gate --rules`).

@@ -3,7 +3,7 @@
 //! bounded channel. The consumer (episode assembly, and whatever the caller does with each
 //! episode) thus overlaps with parsing. Spent blocks travel back for reuse.
 
-use super::chunks::Chunker;
+use super::chunks::{ChunkError, Chunker};
 use super::rows::{Parsed, RowParser};
 use rayon::prelude::*;
 use std::sync::Arc;
@@ -13,7 +13,14 @@ use std::thread::JoinHandle;
 /// What the producer sends: a parsed block, or a read error (then it stops).
 pub enum Item {
     Block(Parsed),
-    ReadError(std::io::Error),
+    ReadError(ChunkError),
+}
+
+/// Blocks cut and parsed together (two per thread); [`super::chunks::Tuning::for_budget`]
+/// counts the blocks in flight from it: this batch, one batch in the channel, up to two
+/// batches of spare parsed buffers, and the consumer's one or two.
+pub fn batch() -> usize {
+    2 * rayon::current_num_threads().max(1)
 }
 
 pub struct Pipeline {
@@ -24,9 +31,9 @@ pub struct Pipeline {
 
 impl Pipeline {
     pub fn start(mut chunker: Chunker, parser: Arc<RowParser>) -> Pipeline {
-        let batch = 2 * rayon::current_num_threads().max(1);
-        let (tx, rx) = sync_channel::<Item>(2 * batch);
-        let (spare_tx, spare_rx) = sync_channel::<Parsed>(4 * batch);
+        let batch = batch();
+        let (tx, rx) = sync_channel::<Item>(batch);
+        let (spare_tx, spare_rx) = sync_channel::<Parsed>(2 * batch);
         let handle = std::thread::spawn(move || {
             let mut buffers: Vec<Parsed> = Vec::new();
             'outer: loop {
@@ -51,7 +58,10 @@ impl Pipeline {
                 parsed
                     .par_iter_mut()
                     .zip(blocks.par_iter())
-                    .for_each(|(out, b)| parser.parse_into(&b.bytes, b.first_line, out));
+                    .for_each(|(out, b)| {
+                        parser.parse_into(&b.bytes, b.first_line, out);
+                        out.tail = b.tail;
+                    });
                 for b in blocks {
                     chunker.recycle(b.bytes);
                 }

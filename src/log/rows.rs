@@ -29,6 +29,9 @@ pub struct Parsed {
     pub ids: Vec<u8>,
     pub vectors: Vec<f64>,
     pub error: Option<Error>,
+    scratch: Scratch,
+    /// How the block's bytes end (only the file's last block can be cut short).
+    pub tail: super::chunks::Tail,
 }
 
 impl Parsed {
@@ -38,6 +41,7 @@ impl Parsed {
         self.ids.clear();
         self.vectors.clear();
         self.error = None;
+        self.tail = super::chunks::Tail::Complete;
     }
 
     pub fn id(&self, row: &Row) -> &[u8] {
@@ -51,12 +55,64 @@ trait Fields {
     fn field(&self, i: usize) -> &[u8];
 }
 
-impl Fields for csv::ByteRecord {
+/// A record read by csv-core: field i is data[ends[i - 1]..ends[i]].
+struct Core<'a> {
+    data: &'a [u8],
+    ends: &'a [usize],
+}
+
+impl Fields for Core<'_> {
     fn count(&self) -> usize {
-        self.len()
+        self.ends.len()
     }
     fn field(&self, i: usize) -> &[u8] {
-        &self[i]
+        let start = if i == 0 { 0 } else { self.ends[i - 1] };
+        &self.data[start..self.ends[i]]
+    }
+}
+
+/// Buffers csv-core writes a record's fields into, kept with a block for reuse.
+#[derive(Debug, Default)]
+pub struct Scratch {
+    data: Vec<u8>,
+    ends: Vec<usize>,
+}
+
+/// A record just read: the input bytes it took and its field count.
+struct Read {
+    consumed: usize,
+    fields: usize,
+}
+
+/// Reads the next record from `bytes[*pos..]` (the end of `bytes` is the end of the input),
+/// growing the scratch buffers as needed; None at the end.
+fn next_record(
+    rdr: &mut csv_core::Reader,
+    bytes: &[u8],
+    pos: &mut usize,
+    s: &mut Scratch,
+) -> Option<Read> {
+    use csv_core::ReadRecordResult as R;
+    let (start, mut nout, mut nend) = (*pos, 0, 0);
+    loop {
+        let (res, nin, o, e) =
+            rdr.read_record(&bytes[*pos..], &mut s.data[nout..], &mut s.ends[nend..]);
+        *pos += nin;
+        nout += o;
+        nend += e;
+        match res {
+            // At the end of `bytes` the next call passes empty input, which ends the record.
+            R::InputEmpty => {}
+            R::OutputFull => s.data.resize(s.data.len() * 2, 0),
+            R::OutputEndsFull => s.ends.resize(s.ends.len() * 2, 0),
+            R::Record => {
+                return Some(Read {
+                    consumed: *pos - start,
+                    fields: nend,
+                });
+            }
+            R::End => return None,
+        }
     }
 }
 
@@ -100,11 +156,60 @@ impl<'a> LineCounter<'a> {
             b += 1;
         }
         if b > self.at {
-            self.line += memchr::memchr_iter(b'\n', &self.bytes[self.at..b]).count() as u64;
+            self.line += super::chunks::line_breaks(&self.bytes[self.at..b]);
             self.at = b;
         }
         self.line
     }
+}
+
+thread_local! {
+    /// csv-core tokenizers built on this thread, by delimiter: building one (its DFA) costs
+    /// more than parsing a small block, and csv-core's `Clone` for its reader copies only
+    /// part of the DFA, so built ones are kept, reset, and reused.
+    static CORES: std::cell::RefCell<Vec<(u8, csv_core::Reader)>> =
+        const { std::cell::RefCell::new(Vec::new()) };
+}
+
+/// Runs `f` with a reset tokenizer for `delimiter`. `primed`: it has read a blank line, so it
+/// strips no byte-order mark at a block's start (a sequential reader strips one only at the
+/// file's start, which is where the header is read, unprimed).
+fn with_core<R>(delimiter: u8, primed: bool, f: impl FnOnce(&mut csv_core::Reader) -> R) -> R {
+    let taken = CORES.with(|c| {
+        let mut c = c.borrow_mut();
+        let i = c.iter().position(|(d, _)| *d == delimiter);
+        i.map(|i| c.swap_remove(i).1)
+    });
+    let mut rdr =
+        taken.unwrap_or_else(|| csv_core::ReaderBuilder::new().delimiter(delimiter).build());
+    rdr.reset();
+    if primed {
+        let _ = rdr.read_record(b"\n", &mut [0; 8], &mut [0; 8]);
+    }
+    let out = f(&mut rdr);
+    CORES.with(|c| c.borrow_mut().push((delimiter, rdr)));
+    out
+}
+
+/// The first record of `bytes` as owned fields (a UTF-8 byte-order mark before it dropped),
+/// and the bytes it took.
+pub fn first_record(bytes: &[u8], delimiter: u8) -> (Vec<Vec<u8>>, usize) {
+    let mut s = Scratch::default();
+    s.data.resize(bytes.len().max(64), 0);
+    s.ends.resize(64, 0);
+    let mut pos = 0;
+    with_core(delimiter, false, |rdr| {
+        match next_record(rdr, bytes, &mut pos, &mut s) {
+            Some(n) => {
+                let rec = Core {
+                    data: &s.data,
+                    ends: &s.ends[..n.fields],
+                };
+                ((0..n.fields).map(|i| rec.field(i).to_vec()).collect(), pos)
+            }
+            None => (Vec::new(), pos),
+        }
+    })
 }
 
 /// Column indices resolved once from the schema.
@@ -169,71 +274,73 @@ impl RowParser {
     /// Parses into `out` (cleared first), reusing its buffers.
     pub fn parse_into(&self, bytes: &[u8], first_line: u64, out: &mut Parsed) {
         out.clear();
-        // Without quotes or carriage returns a record is a line and a field is the text between
-        // delimiters: split with memchr instead of the general CSV state machine. Blank lines
-        // are skipped, as the csv crate does.
-        if memchr::memchr2(b'"', b'\r', bytes).is_none() {
-            let mut bounds = Vec::with_capacity(self.headers.len() + 1);
-            let mut line_no = first_line;
-            let mut start = 0;
-            while start < bytes.len() {
-                let end = memchr::memchr(b'\n', &bytes[start..]).map_or(bytes.len(), |i| start + i);
-                let line = &bytes[start..end];
-                if !line.is_empty() {
-                    bounds.clear();
-                    bounds.push(0);
-                    bounds.extend(memchr::memchr_iter(self.delimiter, line).map(|i| i + 1));
-                    bounds.push(line.len() + 1);
-                    let rec = Split {
-                        line,
-                        bounds: &bounds,
-                    };
-                    match self.row(&rec, line_no, out) {
-                        Ok(row) => out.rows.push(row),
-                        Err(e) => {
-                            out.error = Some(e);
-                            return;
-                        }
+        // Without quotes a record is a line (ended by \n, \r\n or a lone \r) and a field is
+        // the text between delimiters: split with memchr instead of the general CSV state
+        // machine. Blank lines are skipped, as the csv crate does.
+        if memchr::memchr(b'"', bytes).is_none() {
+            self.parse_lines(bytes, first_line, out);
+        } else {
+            self.parse_csv(bytes, first_line, out);
+        }
+    }
+
+    fn parse_lines(&self, bytes: &[u8], first_line: u64, out: &mut Parsed) {
+        let mut bounds = Vec::with_capacity(self.headers.len() + 1);
+        let mut line_no = first_line;
+        let mut start = 0;
+        while start < bytes.len() {
+            let end =
+                memchr::memchr2(b'\n', b'\r', &bytes[start..]).map_or(bytes.len(), |i| start + i);
+            let line = &bytes[start..end];
+            if !line.is_empty() {
+                bounds.clear();
+                bounds.push(0);
+                bounds.extend(memchr::memchr_iter(self.delimiter, line).map(|i| i + 1));
+                bounds.push(line.len() + 1);
+                let rec = Split {
+                    line,
+                    bounds: &bounds,
+                };
+                match self.row(&rec, line_no, out) {
+                    Ok(row) => out.rows.push(row),
+                    Err(e) => {
+                        out.error = Some(e);
+                        return;
                     }
                 }
-                line_no += 1;
-                start = end + 1;
             }
-            return;
+            line_no += 1;
+            let crlf = bytes.get(end) == Some(&b'\r') && bytes.get(end + 1) == Some(&b'\n');
+            start = end + if crlf { 2 } else { 1 };
         }
-        let mut rdr = csv::ReaderBuilder::new()
-            .delimiter(self.delimiter)
-            .has_headers(false)
-            .flexible(true)
-            .from_reader(bytes);
-        let mut rec = csv::ByteRecord::new();
-        // Line numbers are counted here from byte offsets: the csv crate's own line count runs
-        // one behind after CRLF endings (a record's start can be reported at the previous
-        // line's '\n').
+    }
+
+    /// The general path: csv-core's tokenizer, reused with the block's buffers.
+    fn parse_csv(&self, bytes: &[u8], first_line: u64, out: &mut Parsed) {
+        let mut scratch = std::mem::take(&mut out.scratch);
+        scratch.data.resize(bytes.len().max(64), 0);
+        scratch.ends.resize(self.headers.len() + 1, 0);
+        // Line numbers are counted from byte offsets (a record's start, past the line breaks
+        // before it), the same way for both paths.
         let mut lines = LineCounter::new(bytes, first_line);
-        loop {
-            match rdr.read_byte_record(&mut rec) {
-                Ok(false) => break,
-                Ok(true) => {}
-                Err(e) => {
-                    let line = e
-                        .position()
-                        .map_or(first_line, |p| lines.line_at(p.byte() as usize));
-                    out.error = Some(Error::input(self.at(line, None), format!("{:?}", e.kind())));
-                    break;
+        let mut pos = 0;
+        with_core(self.delimiter, true, |rdr| {
+            while let Some(n) = next_record(rdr, bytes, &mut pos, &mut scratch) {
+                let start = pos - n.consumed;
+                let rec = Core {
+                    data: &scratch.data,
+                    ends: &scratch.ends[..n.fields],
+                };
+                match self.row(&rec, lines.line_at(start), out) {
+                    Ok(row) => out.rows.push(row),
+                    Err(e) => {
+                        out.error = Some(e);
+                        break;
+                    }
                 }
             }
-            let line = rec
-                .position()
-                .map_or(first_line, |p| lines.line_at(p.byte() as usize));
-            match self.row(&rec, line, out) {
-                Ok(row) => out.rows.push(row),
-                Err(e) => {
-                    out.error = Some(e);
-                    break;
-                }
-            }
-        }
+        });
+        out.scratch = scratch;
     }
 
     fn field_error<F: Fields>(&self, rec: &F, line: u64, col: usize, p: FieldProblem) -> Error {
@@ -263,6 +370,17 @@ impl RowParser {
             return Err(Error::input(
                 self.at(line, Some(self.episode)),
                 "the episode id is empty",
+            ));
+        }
+        if id.len() > crate::limits::MAX_ID_BYTES {
+            return Err(Error::input(
+                self.at(line, Some(self.episode)),
+                format!(
+                    "the episode id \"{}\" is {} bytes long, more than the limit of {} bytes",
+                    fields::shown(id),
+                    id.len(),
+                    crate::limits::MAX_ID_BYTES
+                ),
             ));
         }
         let row = Row {
@@ -317,16 +435,24 @@ mod tests {
         RowParser::new(&schema, "t.csv", b',')
     }
 
-    // The same records with LF endings (memchr path) and CRLF endings (csv-core path, which
-    // the fast path leaves to the general tokenizer) must give the same rows and line numbers,
-    // blank lines included, and the same first error.
+    // The same records with LF endings (memchr path) and with CRLF endings and quoted ids
+    // (csv-core path, which the fast path leaves to the general tokenizer) must give the same
+    // rows and line numbers, blank lines included, and the same first error.
     #[test]
     fn both_tokenizers_agree() {
         let lf = "a,0,1.5,0,,0.25\nb,0,-2,1,,1e-3\n\na,1,3,1,4.5,-7\nc,0,0,1,,2";
-        let crlf = lf.replace('\n', "\r\n");
+        let crlf = lf
+            .replace('\n', "\r\n")
+            .replace("a,", "\"a\",")
+            .replace("b,", "\"b\",");
         let p = parser();
         let (x, y) = (p.parse(lf.as_bytes(), 2), p.parse(crlf.as_bytes(), 2));
-        assert!(x.error.is_none() && y.error.is_none());
+        assert!(
+            x.error.is_none() && y.error.is_none(),
+            "{:?} {:?}",
+            x.error,
+            y.error
+        );
         assert_eq!(x.rows, y.rows);
         assert_eq!(
             x.rows.iter().map(|r| r.line).collect::<Vec<_>>(),
@@ -339,9 +465,12 @@ mod tests {
         let bad = "a,0,1,0,,1\na,1,x,1,,1\n";
         let (e1, e2) = (
             p.parse(bad.as_bytes(), 2).error.unwrap(),
-            p.parse(bad.replace('\n', "\r\n").as_bytes(), 2)
-                .error
-                .unwrap(),
+            p.parse(
+                bad.replace('\n', "\r\n").replace("a,", "\"a\",").as_bytes(),
+                2,
+            )
+            .error
+            .unwrap(),
         );
         assert_eq!(e1.to_string(), e2.to_string());
         assert!(

@@ -26,7 +26,8 @@ fn replay(target: &str, run: fn(&[u8])) -> usize {
 
 #[test]
 fn reader_inputs() {
-    assert!(replay("reader", gradaudit::fuzzing::reader) >= 4);
+    // 4 seeds and the 4 block-cut mismatches the differential reader target found.
+    assert!(replay("reader", gradaudit::fuzzing::reader) >= 8);
 }
 
 #[test]

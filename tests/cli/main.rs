@@ -10,6 +10,7 @@ mod gate;
 mod hardening_counts;
 mod hardening_files;
 mod hardening_numeric;
+mod hardening_reader;
 mod inspect;
 mod network;
 mod policy;
