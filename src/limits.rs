@@ -102,6 +102,17 @@ impl Budget {
     }
 }
 
+/// The reader's input buffers (blocks read and parsed ahead) may use 1/READER_SHARE of the
+/// budget; see `log::chunks::Tuning::for_budget`.
+pub const READER_SHARE: u64 = 4;
+
+/// Longest record (row, header included) the reader accepts, in bytes; a smaller budget
+/// lowers it to an eighth of the budget. A longer row is an error, not an unbounded buffer.
+pub const MAX_RECORD_BYTES: usize = 16 << 20;
+
+/// Longest episode id, in bytes (longer ones are almost surely a damaged or mis-split file).
+pub const MAX_ID_BYTES: usize = 4096;
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -144,14 +155,3 @@ mod tests {
         );
     }
 }
-
-/// The reader's input buffers (blocks read and parsed ahead) may use 1/READER_SHARE of the
-/// budget; see `log::chunks::Tuning::for_budget`.
-pub const READER_SHARE: u64 = 4;
-
-/// Longest record (row, header included) the reader accepts, in bytes; a smaller budget
-/// lowers it to an eighth of the budget. A longer row is an error, not an unbounded buffer.
-pub const MAX_RECORD_BYTES: usize = 16 << 20;
-
-/// Longest episode id, in bytes (longer ones are almost surely a damaged or mis-split file).
-pub const MAX_ID_BYTES: usize = 4096;
