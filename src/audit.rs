@@ -360,27 +360,15 @@ pub fn collect(
         plan.contribute(&ep, &mut work, &mut flat[start..]);
         ids.push(&ep.key);
     }
-    input.file = reader.file().to_string();
-    input.rows = reader.rows();
-    input.score_dim = plan.d;
-    input.parameters = scores.names.clone();
-    input.value_net = value_net.as_ref().map(|v| v.summary());
-    input.scores_from = if scores.policy.is_some() {
-        "policy"
-    } else {
-        "columns"
-    }
-    .to_string();
-    input.critic = crate::critic::CriticQuality {
-        recorded_explained_variance: reader
-            .schema()
-            .has(Role::Value)
-            .then(|| recorded.value())
-            .flatten(),
-        fitted_explained_variance: fitted.value().filter(|_| cfg.critic.is_some()),
-        fitted_folds: cfg.critic.as_ref().map(|c| c.folds()),
-        fitted_features: cfg.critic.as_ref().map(|c| c.features()),
-    };
+    finish_input(
+        &mut input,
+        &reader,
+        plan,
+        cfg,
+        scores,
+        [&recorded, &fitted],
+        value_net.as_ref(),
+    );
     let n = ids.len();
     if n < 2 {
         return Err(Error::usage(format!(
@@ -409,6 +397,40 @@ pub fn collect(
         input,
         warnings,
     })
+}
+
+/// Completes the input summary once the log is read: file, counts, where scores came from, and
+/// the critics' explained variance (recorded, then fitted or from the value network).
+fn finish_input(
+    input: &mut InputSummary,
+    reader: &LogReader,
+    plan: &Plan,
+    cfg: &AuditConfig,
+    scores: &Scores,
+    [recorded, fitted]: [&crate::critic::ExplainedVariance; 2],
+    value_net: Option<&crate::critic::net::ValueCritic>,
+) {
+    input.file = reader.file().to_string();
+    input.rows = reader.rows();
+    input.score_dim = plan.d;
+    input.parameters = scores.names.clone();
+    input.value_net = value_net.map(|v| v.summary());
+    input.scores_from = if scores.policy.is_some() {
+        "policy"
+    } else {
+        "columns"
+    }
+    .to_string();
+    input.critic = crate::critic::CriticQuality {
+        recorded_explained_variance: reader
+            .schema()
+            .has(Role::Value)
+            .then(|| recorded.value())
+            .flatten(),
+        fitted_explained_variance: fitted.value().filter(|_| cfg.critic.is_some()),
+        fitted_folds: cfg.critic.as_ref().map(|c| c.folds()),
+        fitted_features: cfg.critic.as_ref().map(|c| c.features()),
+    };
 }
 
 /// Reorders the rows of a row-major `n x width` buffer in place so that new row i is old row
