@@ -250,14 +250,9 @@ pub struct SweepReport {
     pub warnings: Warnings,
 }
 
-/// Runs a sweep over an opened log.
-pub fn run(reader: LogReader, cfg: &SweepConfig) -> Result<SweepReport> {
-    cfg.audit.validate()?;
-    if cfg.grid.is_empty() {
-        return Err(Error::usage("the grid is empty"));
-    }
-    let scores = audit::scores(&reader, &cfg.audit)?;
-    let d = scores.dim;
+/// Refuses sweeps the data cannot support: projected scores (not rescaled here), value-based
+/// grids without a value column or critic, and batch-dependent families.
+fn check_sweepable(reader: &LogReader, cfg: &SweepConfig, scores: &audit::Scores) -> Result<()> {
     if scores.projection.is_some() {
         return Err(Error::usage(
             "sweep does not rescale projected scores; give --project exact (or audit, which does)",
@@ -278,6 +273,18 @@ pub fn run(reader: LogReader, cfg: &SweepConfig) -> Result<SweepReport> {
             cfg.family
         )));
     }
+    Ok(())
+}
+
+/// Runs a sweep over an opened log.
+pub fn run(reader: LogReader, cfg: &SweepConfig) -> Result<SweepReport> {
+    cfg.audit.validate()?;
+    if cfg.grid.is_empty() {
+        return Err(Error::usage("the grid is empty"));
+    }
+    let scores = audit::scores(&reader, &cfg.audit)?;
+    let d = scores.dim;
+    check_sweepable(&reader, cfg, &scores)?;
     // Entry 0 is the reference; the grid points follow in order.
     let mut estimators = vec![cfg.audit.reference];
     let mut gammas = vec![cfg.audit.gamma];
