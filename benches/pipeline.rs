@@ -159,6 +159,8 @@ fn statistics(c: &mut Criterion) {
             confidence: 0.95,
             target_snr: 1.0,
             per_coord: false,
+            bias_level: stats::BIAS_LEVEL,
+            multiplicity: stats::Multiplicity::Holm,
         };
         g.throughput(Throughput::Elements(d as u64));
         g.bench_function(format!("5 estimators, N = 1000, B = 2000, d = {d}"), |b| {

@@ -45,6 +45,10 @@ pub struct AuditConfig {
     pub project: crate::policy::projection::ProjectMode,
     /// A value network description computing V(s_t) (critic/net.rs).
     pub value_net: Option<String>,
+    /// Level of the table-wide bias decisions (stats/multiplicity.rs).
+    pub bias_level: f64,
+    /// Which error rate the bias decisions control across the table.
+    pub multiplicity: stats::Multiplicity,
 }
 
 /// Where score vectors come from when both are available.
@@ -72,6 +76,8 @@ impl Default for AuditConfig {
             critic: None,
             project: crate::policy::projection::ProjectMode::Auto,
             value_net: None,
+            bias_level: stats::BIAS_LEVEL,
+            multiplicity: stats::Multiplicity::Holm,
         }
     }
 }
@@ -127,6 +133,11 @@ impl AuditConfig {
         if !(self.confidence > 0.0 && self.confidence < 1.0) {
             return Err(Error::usage(
                 "--confidence must lie strictly between 0 and 1",
+            ));
+        }
+        if !(self.bias_level > 0.0 && self.bias_level < 1.0) {
+            return Err(Error::usage(
+                "--bias-level must lie strictly between 0 and 1",
             ));
         }
         if !(self.target_snr > 0.0 && self.target_snr.is_finite()) {
@@ -256,6 +267,7 @@ impl Ids {
 
 mod scoring;
 pub use scoring::{Scorer, Scores, scores};
+mod significance;
 
 /// The result of the single pass: one contribution row per episode, in canonical order.
 pub struct Collected {
@@ -570,6 +582,8 @@ pub fn statistics(
         confidence: cfg.confidence,
         target_snr: cfg.target_snr,
         per_coord,
+        bias_level: cfg.bias_level,
+        multiplicity: cfg.multiplicity,
     };
     stats::summarise_with(plan, reference, &point, &source, &scfg)
 }
@@ -603,7 +617,8 @@ pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
         .iter()
         .position(|e| *e == cfg.reference)
         .expect("select() keeps the reference");
-    let plan = Plan::new(estimators, cfg.gamma, d);
+    // The moment columns give each replicate its own variance, for the noise scale's interval.
+    let plan = Plan::new(estimators, cfg.gamma, d).with_moments(reference);
 
     let data = collect(reader, &plan, cfg, &scores)?;
     let n = data.contrib.nrows();
@@ -611,7 +626,7 @@ pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
     few_episodes_warning(n, &mut warnings);
     let per_coord = cfg.sketch.is_some() || scores.projection.is_some();
     let (stats, signal) = statistics(&data, &plan, reference, cfg, per_coord);
-    let input = data.input;
+    let input = data.input.clone();
 
     let refs = ReferenceFigures::of(&stats[reference], &signal);
     let per_coord: Vec<crate::sketch::CoordFigures> = plan
@@ -636,6 +651,18 @@ pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
         .collect();
     crate::report::sort_rows(&mut estimators);
     let verdict = Verdict::from_rows(&estimators, refs.signal);
+    let noise_scale = significance::noise_scales(
+        &data,
+        &plan,
+        reference,
+        cfg,
+        &estimators,
+        verdict.best.as_deref(),
+    );
+    let (sig, gap) = (
+        significance::significance(&estimators, cfg),
+        significance::baseline_gap(&estimators),
+    );
     let signal_coords = signal.per_coord.as_deref();
     let mut report = AuditReport {
         tool: crate::report::Tool::current(),
@@ -654,6 +681,9 @@ pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
         reference_variance: refs.variance,
         estimators,
         skipped,
+        significance: sig,
+        baseline_gap: gap,
+        noise_scale,
         verdict,
         warnings,
     };

@@ -100,6 +100,12 @@ impl Plan {
         self
     }
 
+    /// The first moment column (q of estimator 0; q_k and r_k sit at start + 2k, start + 2k + 1),
+    /// when planned.
+    pub fn moment_start(&self) -> Option<usize> {
+        self.moments.map(|(start, _)| start)
+    }
+
     /// Weighted means of q = ||g_k||^2 and r = ||g_k - g_ref||^2 for estimator k, when planned
     /// and k is a per-episode estimator.
     pub fn moments(&self, k: usize, mean: &[f64]) -> Option<(f64, f64)> {

@@ -303,6 +303,8 @@ pub fn run(reader: LogReader, cfg: &SweepConfig) -> Result<SweepReport> {
         halves,
     } = audit::resample_all(&data, &cfg.audit);
     let scfg = StatsConfig {
+        bias_level: cfg.audit.bias_level,
+        multiplicity: cfg.audit.multiplicity,
         episodes: n,
         confidence: cfg.audit.confidence,
         target_snr: cfg.audit.target_snr,

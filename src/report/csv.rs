@@ -9,6 +9,10 @@ pub fn render(r: &AuditReport) -> String {
     let mut header: Vec<&str> = COLUMNS.iter().map(|c| c.key).collect();
     header[0] = "estimator";
     header.push("bias_detected");
+    header.push("bias_p");
+    header.push("bias_p_adjusted");
+    header.push("bias_control");
+    header.push("noise_scale");
     header.push("reference");
     header.push("notes");
     w.write_record(&header).expect("writing to memory");
@@ -27,6 +31,11 @@ pub fn render(r: &AuditReport) -> String {
         }
         cells[0] = row.name.clone();
         cells.push(row.bias_detected.to_string());
+        cells.push(super::finite_cell(row.bias_p));
+        cells.push(super::finite_cell(row.bias_p_adjusted));
+        let sig = &r.significance;
+        cells.push(format!("{}@{}", sig.multiplicity.key(), sig.level));
+        cells.push(super::finite_cell(row.noise_scale));
         cells.push(row.reference.to_string());
         cells.push(row.notes.join("; "));
         w.write_record(&cells).expect("writing to memory");

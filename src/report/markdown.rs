@@ -37,7 +37,7 @@ pub fn render(r: &AuditReport) -> String {
             out.push_str(&format!("- note ({}): {note}\n", row.name));
         }
     }
-    if let Some(line) = super::table::bias_legend(r) {
+    for line in super::significance::lines(r) {
         out.push_str(&format!("- {line}\n"));
     }
     for s in &r.skipped {

@@ -12,6 +12,7 @@ pub mod csv;
 pub mod gate;
 pub mod inspect;
 pub mod markdown;
+pub mod significance;
 pub mod svg;
 pub mod sweep;
 pub mod table;
@@ -172,6 +173,10 @@ pub struct EstimatorRow {
     pub bias_sq: Option<f64>,
     pub bias_sq_interval: Option<Interval>,
     pub bias_z: Option<f64>,
+    /// Bootstrap-null p-value of "no bias" (null for the reference).
+    pub bias_p: Option<f64>,
+    /// bias_p adjusted across the table (see `.significance`); bias_detected follows it.
+    pub bias_p_adjusted: Option<f64>,
     pub bias_detected: bool,
     pub bias_norm_interval: Option<Interval>,
     pub mse: Option<f64>,
@@ -181,6 +186,8 @@ pub struct EstimatorRow {
     pub cosine_half_interval: Option<Interval>,
     pub episodes_for_snr: Option<u64>,
     pub bias_limited: bool,
+    /// Gradient noise scale B_simple = N variance / signal, in episodes.
+    pub noise_scale: Option<f64>,
     pub notes: Vec<String>,
 }
 
@@ -261,6 +268,8 @@ impl EstimatorRow {
             bias_sq: when(bias, s.bias_sq),
             bias_sq_interval: bias.then_some(s.bias_sq_interval),
             bias_z: s.bias_z.filter(|x| bias && x.is_finite()),
+            bias_p: s.bias_p.filter(|_| bias),
+            bias_p_adjusted: s.bias_p_adjusted.filter(|_| bias),
             bias_detected: bias && s.bias_detected,
             bias_norm_interval: bias.then_some(s.bias_norm_interval),
             mse: when(bias, s.mse),
@@ -275,6 +284,7 @@ impl EstimatorRow {
                 .and_then(finite_interval),
             episodes_for_snr,
             bias_limited: signal && s.bias_limited,
+            noise_scale: s.noise_scale.filter(|x| signal && x.is_finite()),
             notes,
         }
     }
@@ -375,6 +385,12 @@ pub struct AuditReport {
     pub skipped: Vec<Skipped>,
     pub verdict: Verdict,
     pub warnings: Warnings,
+    /// How the bias decisions were made.
+    pub significance: significance::Significance,
+    /// B_simple of the reference and of the verdict's estimator.
+    pub noise_scale: Vec<significance::NoiseScale>,
+    /// The user's baseline against the minimum-variance one, when both were audited.
+    pub baseline_gap: Option<significance::BaselineGap>,
 }
 
 /// Renders a report in the chosen format.

@@ -92,21 +92,10 @@ pub fn render(r: &AuditReport) -> String {
     out
 }
 
-/// Explains the '?' marker: which biases resampling noise could explain, with their z.
+/// How the bias was tested and the '?' marker's legend, then the noise scale and baseline
+/// lines (report/significance.rs), one per line.
 pub fn bias_legend(r: &AuditReport) -> Option<String> {
-    let unsure: Vec<String> = r
-        .estimators
-        .iter()
-        .filter(|e| e.bias_sq.is_some_and(|b| b > 0.0) && !e.bias_detected)
-        .map(|e| format!("{} {:.1}", e.name, e.bias_z.unwrap_or(0.0)))
-        .collect();
-    (!unsure.is_empty()).then(|| {
-        format!(
-            "?: bias^2 within resampling noise (z < {}), it may be zero; z: {}",
-            crate::stats::BIAS_Z,
-            unsure.join(", ")
-        )
-    })
+    Some(super::significance::lines(r).join("\n"))
 }
 
 /// One line on the critics' quality, when there is a critic.

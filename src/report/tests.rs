@@ -30,6 +30,8 @@ fn stats() -> EstimatorStats {
         bias_sq: 0.5,
         bias_sq_interval: UNIT,
         bias_z: Some(3.0),
+        bias_p: Some(0.001),
+        bias_p_adjusted: Some(0.004),
         bias_detected: true,
         bias_norm_interval: UNIT,
         mse: 1.5,
@@ -39,6 +41,7 @@ fn stats() -> EstimatorStats {
         cosine_half_interval: Some(UNIT),
         episodes_for_snr: Some(4),
         bias_limited: false,
+        noise_scale: Some(3.0),
         notes: vec![],
         per_coord: None,
     }

@@ -9,7 +9,15 @@
 //!   variance of D_k (the paired noise floor); mse = bias_sq + V_k;
 //! - signal = max(0, sum_j [g_ref,j^2 - V_ref,j]); snr = signal / mse; ess = N V_ref / mse;
 //! - bias_z = (||g_k - g_ref||^2 - tr S) / sqrt(2 tr S^2), S the sample covariance of D_k:
-//!   under no bias ||D||^2 has mean tr S and variance 2 tr S^2 (Gaussian quadratic form).
+//!   under no bias ||D||^2 has mean tr S and variance 2 tr S^2 (Gaussian quadratic form). It
+//!   is descriptive only: the decision uses the bootstrap-null p-value of [`bias_test`],
+//!   adjusted across the table by [`multiplicity`];
+//! - intervals of the norms (gradient, bias): the square roots of the noise-corrected
+//!   squared-norm intervals (see [`sq_norm_interval`]), so that they are intervals for the true
+//!   norms, not for the norms of noisy replicates (which sit above the truth by the noise);
+//! - noise_scale = N V_k / signal: the gradient noise scale B_simple = tr(Sigma) / |G|^2
+//!   (McCandlish et al. 2018, eq. 2.9), Sigma the per-episode covariance, in episodes;
+//!   see [`noise`].
 //!   tr S^2 = ||X^T X||_F^2 / (B - 1)^2 = ||X X^T||_F^2 / (B - 1)^2 with X the centred B x d
 //!   replicates; the smaller of the two Gram matrices is formed, so its cost is
 //!   B d min(B, d) / 2 multiply-adds, at most B^2 d / 2: linear in d.
@@ -26,13 +34,20 @@
 //! infinite, which the report turns into null with its own note, and the optional ones are
 //! `None` with a note naming them.
 
+pub mod bias_test;
+pub mod intervals;
+pub mod multiplicity;
+pub mod noise;
+pub mod normal;
+
 use crate::contrib::{GradNote, Plan};
+pub use multiplicity::Multiplicity;
 use ndarray::{Array2, ArrayView2, Axis, linalg::general_mat_mul, s};
 use rayon::prelude::*;
 
-/// Threshold on bias_z for calling a bias detected: about a one-sided 2.3% false-alarm rate
-/// under the normal approximation (common practice, no single source).
-pub const BIAS_Z: f64 = 2.0;
+/// Default level of the table-wide bias decisions (family-wise with Holm, false-discovery
+/// rate with Benjamini-Hochberg).
+pub const BIAS_LEVEL: f64 = 0.05;
 
 /// What the statistics need besides the data.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -46,6 +61,10 @@ pub struct StatsConfig {
     /// Also return the per-coordinate terms of the squared figures ([`PerCoord`], the signal's
     /// `per_coord`); off by default so that a normal audit keeps no d-length vectors.
     pub per_coord: bool,
+    /// Level of the table-wide bias decisions, in (0, 1).
+    pub bias_level: f64,
+    /// Which error rate the bias decisions control across the table.
+    pub multiplicity: Multiplicity,
 }
 
 /// The per-coordinate terms of one estimator's squared figures, each of length d: for
@@ -83,7 +102,11 @@ pub struct EstimatorStats {
     /// Bias-corrected percentile interval of bias_sq (see [`sq_norm_interval`]).
     pub bias_sq_interval: Interval,
     pub bias_z: Option<f64>,
-    /// bias_z >= [`BIAS_Z`]: the bias is distinguishable from resampling noise.
+    /// Bootstrap-null p-value of "no bias" ([`bias_test`]); None for the reference.
+    pub bias_p: Option<f64>,
+    /// `bias_p` adjusted across the table ([`multiplicity`]).
+    pub bias_p_adjusted: Option<f64>,
+    /// bias_p_adjusted <= the level: the bias is distinguishable from resampling noise.
     pub bias_detected: bool,
     pub bias_norm_interval: Interval,
     pub mse: f64,
@@ -94,6 +117,9 @@ pub struct EstimatorStats {
     pub episodes_for_snr: Option<u64>,
     /// The bias alone keeps the SNR below the target at any batch size.
     pub bias_limited: bool,
+    /// N V_k / signal: the gradient noise scale in episodes ([`noise`]); None when the signal
+    /// is zero or undefined.
+    pub noise_scale: Option<f64>,
     pub notes: Vec<String>,
     /// Per-coordinate terms of variance, bias_sq and mse, when [`StatsConfig::per_coord`].
     pub per_coord: Option<PerCoord>,
@@ -335,7 +361,17 @@ pub fn summarise_with(
                 (Some(reps), constant)
             };
             let (p, point_constant) = point_grad(k);
-            let mut st = estimator_stats(&ctx, k, p, reps, source.halves(k));
+            let pending = estimator_stats(&ctx, k, p, reps, source.halves(k));
+            (pending, constant, point_constant)
+        })
+        .collect::<Vec<_>>();
+    let raw: Vec<Option<f64>> = stats.iter().map(|(p, _, _)| p.stats.bias_p).collect();
+    let adjusted = cfg.multiplicity.adjust(&raw);
+    let stats = stats
+        .into_iter()
+        .zip(adjusted)
+        .map(|((pending, constant, point_constant), adj)| {
+            let mut st = decide(&ctx, pending, adj);
             constant_note(
                 &mut st.notes,
                 constant,
@@ -369,11 +405,13 @@ struct Spread {
     bias_norms: Vec<f64>,
     /// sqrt(2 tr S^2) of the paired difference (0 for the reference itself).
     spread: f64,
+    /// Centred difference replicates reaching ||D||^2 ([`bias_test::exceedances`]).
+    exceed: usize,
 }
 
 /// `reps` is None for the reference itself, whose paired difference is zero.
 fn spread(ctx: &Context, point: &[f64], reps: Option<Array2<f64>>) -> Spread {
-    let (own, diff, spread) = match reps {
+    let (own, diff, spread, exceed) = match reps {
         None => {
             let (b, d) = ctx.ref_reps.dim();
             let zero = Moments {
@@ -381,14 +419,20 @@ fn spread(ctx: &Context, point: &[f64], reps: Option<Array2<f64>>) -> Spread {
                 var: vec![0.0; d],
                 sq_norms: vec![0.0; b],
             };
-            (Moments::of(ctx.ref_reps.view()), zero, 0.0)
+            (Moments::of(ctx.ref_reps.view()), zero, 0.0, 0)
         }
         Some(mut reps) => {
             let own = Moments::of(reps.view());
             reps -= &ctx.ref_reps;
             let diff = Moments::of(reps.view());
+            let d_point: Vec<f64> = point
+                .iter()
+                .zip(&ctx.ref_point)
+                .map(|(a, r)| a - r)
+                .collect();
+            let exceed = bias_test::exceedances(reps.view(), &d_point);
             let spread = (2.0 * covariance_frobenius_sq(&mut reps, &diff.mean)).sqrt();
-            (own, diff, spread)
+            (own, diff, spread, exceed)
         }
     };
     let bias_coords: Vec<f64> = point
@@ -405,6 +449,7 @@ fn spread(ctx: &Context, point: &[f64], reps: Option<Array2<f64>>) -> Spread {
         var_k: own.var,
         bias_coords,
         spread,
+        exceed,
     }
 }
 
@@ -433,6 +478,19 @@ fn cosine_half(halves: ArrayView2<f64>, confidence: f64) -> Result<(f64, Interva
     Ok((mean, percentile_interval(cosines, confidence)))
 }
 
+/// One estimator's figures before the table-wide bias decision: the decision, and what
+/// follows from it (bias_limited, episodes_for_snr and their notes), is made by [`decide`].
+struct Pending {
+    stats: EstimatorStats,
+    /// Names of undefined figures so far (the note is added once everything is decided).
+    undefined: Vec<&'static str>,
+    /// Where the planning notes go among the notes (after those of snr and ess).
+    plan_at: usize,
+    is_ref: bool,
+    /// A nonzero bias with an exactly zero paired spread: no noise could explain it.
+    certain: bool,
+}
+
 /// All figures of estimator k from its point gradient, replicates and half splits.
 fn estimator_stats(
     ctx: &Context,
@@ -440,11 +498,12 @@ fn estimator_stats(
     point: Vec<f64>,
     reps: Option<Array2<f64>>,
     halves: Array2<f64>,
-) -> EstimatorStats {
+) -> Pending {
     let cfg = ctx.cfg;
+    let b_count = ctx.ref_reps.nrows();
     let sp = spread(ctx, &point, reps);
     let mut notes = Vec::new();
-    let mut undefined: Vec<&str> = Vec::new();
+    let mut undefined: Vec<&'static str> = Vec::new();
     let variance: f64 = sp.var_k.iter().sum();
     let bias_sq = nonneg(sp.raw_bias);
     let mse = bias_sq + variance;
@@ -459,16 +518,11 @@ fn estimator_stats(
         }
         defined.then_some(z)
     };
-    let bias_detected = bias_z.is_some_and(|z| z >= BIAS_Z)
-        || (sp.spread == 0.0 && !is_ref && bias_sq.is_finite() && bias_sq > 0.0);
+    let diff_finite = sp.bias_norms.iter().all(|x| x.is_finite()) && sp.raw_bias.is_finite();
+    let bias_p = (!is_ref && diff_finite).then(|| bias_test::p_value(sp.exceed, b_count));
+    let certain = sp.spread == 0.0 && !is_ref && bias_sq.is_finite() && bias_sq > 0.0;
     let (snr, ess) = snr_and_ess(ctx, mse, &mut notes, &mut undefined);
-    let threshold = ctx.signal / cfg.target_snr;
-    let bias_limited = ctx.signal > 0.0 && threshold <= bias_sq && bias_detected;
-    let episodes_for_snr = plan_episodes(ctx, [variance, bias_sq], bias_limited, &mut notes)
-        .unwrap_or_else(|()| {
-            undefined.push("episodes_for_snr");
-            None
-        });
+    let plan_at = notes.len();
     let (cosine_half, cosine_half_interval) = match cosine_half(halves.view(), cfg.confidence) {
         Ok((c, iv)) => (Some(c), Some(iv)),
         Err(why) => {
@@ -477,9 +531,14 @@ fn estimator_stats(
         }
     };
     let gradient_norm = point.iter().map(|x| x * x).sum::<f64>().sqrt();
+    let noise_scale = noise::episodes(cfg.episodes, variance, ctx.signal);
     let stats = EstimatorStats {
         gradient_norm,
-        gradient_norm_interval: percentile_interval(sp.norms, cfg.confidence),
+        gradient_norm_interval: norm_interval(
+            sp.norms.iter().map(|x| x * x).collect(),
+            variance,
+            cfg.confidence,
+        ),
         variance,
         bias_sq,
         bias_sq_interval: sq_norm_interval(
@@ -488,15 +547,22 @@ fn estimator_stats(
             cfg.confidence,
         ),
         bias_z,
-        bias_detected,
-        bias_norm_interval: percentile_interval(sp.bias_norms, cfg.confidence),
+        bias_p,
+        bias_p_adjusted: None,
+        bias_detected: false,
+        bias_norm_interval: norm_interval(
+            sp.bias_norms.iter().map(|x| x * x).collect(),
+            sp.v_diff,
+            cfg.confidence,
+        ),
         mse,
         snr,
         ess,
         cosine_half,
         cosine_half_interval,
-        episodes_for_snr,
-        bias_limited,
+        episodes_for_snr: None,
+        bias_limited: false,
+        noise_scale,
         notes,
         per_coord: cfg.per_coord.then(|| PerCoord {
             mse: sp
@@ -510,7 +576,55 @@ fn estimator_stats(
         }),
         gradient: point,
     };
+    Pending {
+        stats,
+        undefined,
+        plan_at,
+        is_ref,
+        certain,
+    }
+}
+
+/// The table-wide decision for one estimator, given its adjusted p-value, and what follows
+/// from it: bias_limited, episodes_for_snr and their notes, then the undefined-figures note.
+fn decide(ctx: &Context, pending: Pending, adjusted: Option<f64>) -> EstimatorStats {
+    let Pending {
+        mut stats,
+        mut undefined,
+        plan_at,
+        is_ref,
+        certain,
+    } = pending;
+    stats.bias_p_adjusted = adjusted;
+    stats.bias_detected = !is_ref
+        && (certain || adjusted.is_some_and(|p| p <= ctx.cfg.bias_level))
+        && stats.bias_sq.is_finite()
+        && stats.bias_sq > 0.0;
+    let threshold = ctx.signal / ctx.cfg.target_snr;
+    stats.bias_limited = ctx.signal > 0.0 && threshold <= stats.bias_sq && stats.bias_detected;
+    let mut plan_notes = Vec::new();
+    stats.episodes_for_snr = plan_episodes(
+        ctx,
+        [stats.variance, stats.bias_sq],
+        stats.bias_limited,
+        &mut plan_notes,
+    )
+    .unwrap_or_else(|()| {
+        undefined.push("episodes_for_snr");
+        None
+    });
+    stats.notes.splice(plan_at..plan_at, plan_notes);
     with_undefined_note(stats, undefined)
+}
+
+/// Interval for a norm ||g|| from the replicates' squared norms: the square roots of the ends
+/// of [`sq_norm_interval`] (a monotone map, so the coverage carries over).
+fn norm_interval(sq: Vec<f64>, v: f64, confidence: f64) -> Interval {
+    let iv = sq_norm_interval(sq, v, confidence);
+    Interval {
+        low: iv.low.sqrt(),
+        high: iv.high.sqrt(),
+    }
 }
 
 /// Adds one note naming every figure that is undefined because an input overflowed f64 or is
@@ -697,6 +811,8 @@ mod tests {
             confidence: 0.9,
             target_snr: 1.0,
             per_coord,
+            bias_level: BIAS_LEVEL,
+            multiplicity: Multiplicity::Holm,
         }
     }
 

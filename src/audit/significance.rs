@@ -1,0 +1,157 @@
+//! The audit's significance figures beside the table (report/significance.rs): the bias
+//! test's summary, the gradient noise scale of the reference and of the chosen estimator with
+//! its BCa interval (stats/noise.rs), and the user's baseline against the minimum-variance one.
+
+use super::{AuditConfig, Collected, Resampler};
+use crate::contrib::Plan;
+use crate::report::EstimatorRow;
+use crate::report::significance::{BaselineGap, NoiseScale, Significance};
+use crate::resample;
+use crate::stats::{ReplicateGradients, noise};
+
+/// The bias test's summary over the rows.
+pub fn significance(rows: &[EstimatorRow], cfg: &AuditConfig) -> Significance {
+    Significance {
+        null: "bootstrap_centred_paired",
+        multiplicity: cfg.multiplicity,
+        controls: cfg.multiplicity.describe(),
+        level: cfg.bias_level,
+        tested: rows.iter().filter(|r| r.bias_p_adjusted.is_some()).count(),
+        detected: rows.iter().filter(|r| r.bias_detected).count(),
+    }
+}
+
+/// B_simple for the reference and for the lowest-MSE estimator (once if they are the same).
+pub fn noise_scales(
+    data: &Collected,
+    plan: &Plan,
+    reference: usize,
+    cfg: &AuditConfig,
+    rows: &[EstimatorRow],
+    best: Option<&str>,
+) -> Vec<NoiseScale> {
+    let name = |k: usize| plan.estimators[k].to_string();
+    let mut which = vec![(reference, "reference")];
+    let chosen = best.and_then(|b| (0..plan.estimators.len()).find(|&k| name(k) == b));
+    if let Some(k) = chosen.filter(|&k| k != reference) {
+        which.push((k, "chosen"));
+    }
+    let per_step = data.input.steps as f64 / data.input.episodes.max(1) as f64;
+    which
+        .into_iter()
+        .map(|(k, role)| {
+            let point = rows
+                .iter()
+                .find(|r| r.name == name(k))
+                .and_then(|r| r.noise_scale);
+            let (interval, note) = match point {
+                None => (None, Some("the signal is zero or undefined".to_string())),
+                Some(_) if plan.moments(k, &vec![0.0; plan.width()]).is_none() => (
+                    None,
+                    Some("interval computed for per-episode estimators only".to_string()),
+                ),
+                Some(_) => match interval(data, plan, k, reference, cfg) {
+                    Some(iv) => (Some(iv), None),
+                    None => (None, Some("interval undefined".to_string())),
+                },
+            };
+            NoiseScale {
+                estimator: name(k),
+                role,
+                episodes: point,
+                episodes_interval: interval,
+                steps: point.map(|p| p * per_step),
+                steps_interval: interval.map(|iv| iv.scaled(per_step)),
+                note,
+            }
+        })
+        .collect()
+}
+
+/// The BCa interval of B_simple for per-episode estimator k (see stats/noise.rs).
+fn interval(
+    data: &Collected,
+    plan: &Plan,
+    k: usize,
+    reference: usize,
+    cfg: &AuditConfig,
+) -> Option<noise::ScaleInterval> {
+    let contrib = data.contrib.view();
+    let n = contrib.nrows();
+    let start = plan.moment_start()?;
+    let source = Resampler {
+        plan,
+        contrib,
+        seed: cfg.seed,
+        resamples: cfg.resamples,
+        splits: cfg.splits,
+    };
+    let (gk, _) = source.bootstrap(k);
+    let (gr, _) = source.bootstrap(reference);
+    let seed = cfg.seed;
+    let cols = [start + 2 * k, start + 2 * reference];
+    // Two moment columns need not be adjacent: one weighted-mean pass over the span.
+    let (lo, hi) = (cols[0].min(cols[1]), cols[0].max(cols[1]) + 1);
+    let (moments, _) = resample::weighted_gradients(
+        contrib,
+        cfg.resamples,
+        lo..hi,
+        2,
+        |b, w| resample::bootstrap_counts(seed, b as u64, w),
+        |mean, out| {
+            out[0] = mean[cols[0] - lo];
+            out[1] = mean[cols[1] - lo];
+            false
+        },
+    );
+    let reps: Vec<f64> = (0..cfg.resamples)
+        .map(|b| {
+            let (gk, gr) = (gk.row(b).to_vec(), gr.row(b).to_vec());
+            noise::reciprocal(n, &gk, moments[[b, 0]], &gr, moments[[b, 1]])
+        })
+        .collect();
+    let total: Vec<f64> = contrib.sum_axis(ndarray::Axis(0)).to_vec();
+    let (ck, cr) = (plan.columns(k), plan.columns(reference));
+    let at = |mean: &[f64]| {
+        noise::reciprocal(
+            n,
+            &mean[ck.clone()],
+            mean[cols[0]],
+            &mean[cr.clone()],
+            mean[cols[1]],
+        )
+    };
+    let estimate = at(&total.iter().map(|x| x / n as f64).collect::<Vec<_>>());
+    let jack: Vec<f64> = contrib
+        .outer_iter()
+        .map(|row| {
+            let loo: Vec<f64> = total
+                .iter()
+                .zip(row)
+                .map(|(t, x)| (t - x) / (n as f64 - 1.0))
+                .collect();
+            at(&loo)
+        })
+        .collect();
+    noise::interval(reps, estimate, &jack, cfg.confidence)
+}
+
+/// The user's baseline (the critic's value_baseline, else mean_baseline) against the
+/// minimum-variance baseline audited (the time-dependent one, else the constant one).
+pub fn baseline_gap(rows: &[EstimatorRow]) -> Option<BaselineGap> {
+    let find = |names: &[&str]| {
+        names
+            .iter()
+            .find_map(|n| rows.iter().find(|r| r.name == *n && r.variance.is_some()))
+    };
+    let user = find(&["value_baseline", "mean_baseline"])?;
+    let best = find(&["minvar_rtg", "minvar_total"])?;
+    let (u, o) = (user.variance?, best.variance?);
+    (o > 0.0).then(|| BaselineGap {
+        baseline: user.name.clone(),
+        optimal: best.name.clone(),
+        baseline_variance: u,
+        optimal_variance: o,
+        ratio: u / o,
+    })
+}
