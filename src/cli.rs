@@ -160,6 +160,16 @@ pub struct AuditOptions {
     #[arg(long, default_value_t = 200, value_name = "N")]
     pub splits: usize,
 
+    /// Level of the bias decisions across the whole table (a bias is detected when its
+    /// adjusted p-value is at most this)
+    #[arg(long, default_value_t = 0.05, value_name = "ALPHA")]
+    pub bias_level: f64,
+
+    /// What the bias decisions control across the table: holm (family-wise error rate) or bh
+    /// (Benjamini-Hochberg false-discovery rate)
+    #[arg(long, value_enum, default_value = "holm")]
+    pub multiplicity: MultiplicityArg,
+
     /// Compute the score vectors from the obs and act columns with this policy file (JSON,
     /// schema gradaudit.policy/1: a linear family, or an MLP with safetensors weights; see the
     /// README)
@@ -529,6 +539,11 @@ impl AuditOptions {
                 .map_err(|e| Error::usage(format!("--project {e}")))?,
             value_net: self.value_net.clone(),
             budget: log.budget()?,
+            bias_level: self.bias_level,
+            multiplicity: match self.multiplicity {
+                MultiplicityArg::Holm => crate::stats::Multiplicity::Holm,
+                MultiplicityArg::Bh => crate::stats::Multiplicity::Bh,
+            },
             ..AuditConfig::default()
         };
         cfg.validate()?;
@@ -666,4 +681,13 @@ fn run_gate(g: GateArgs) -> Result<u8> {
     } else {
         exit::CHECK_FAILED
     })
+}
+
+/// `--multiplicity`: the procedure behind the table-wide bias decisions.
+#[derive(Debug, Clone, Copy, ValueEnum)]
+pub enum MultiplicityArg {
+    /// Holm (1979): family-wise error rate
+    Holm,
+    /// Benjamini and Hochberg (1995): false-discovery rate
+    Bh,
 }

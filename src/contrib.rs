@@ -9,6 +9,9 @@
 //! With weights w: b(w) = sum w A / sum w T, and the mean-baseline gradient is
 //! (sum w S - b sum w H) / sum w; whitening divides it by sd(w) = sqrt(sum w Q / sum w T - b^2).
 //!
+//! The minimum-variance baselines (`minvar_total`, `minvar_rtg`) have their own blocks of
+//! sufficient sums after the auxiliary one; their layout and math are in [`minvar`].
+//!
 //! Optionally ([`Plan::with_moments`]) two scalars per per-episode estimator follow:
 //! q = ||g_k||^2 and r = ||g_k - g_ref||^2. From their weighted means the ideal-bootstrap
 //! variance of any replicate is exact: (mean_w q - ||mean_w g_k||^2) / N, and likewise for the
@@ -17,6 +20,8 @@
 use crate::episode::Episode;
 use crate::estimator::{Estimator, scan};
 use ndarray::ArrayView2;
+
+pub mod minvar;
 
 /// Why a gradient came out as it did, when that needs saying.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -43,6 +48,9 @@ pub struct Plan {
     linear: Vec<(usize, usize)>,
     /// Start of the auxiliary block, when present.
     aux: Option<usize>,
+    /// Starts of the minimum-variance baselines' blocks, when planned.
+    minvar_total: Option<usize>,
+    minvar_rtg: Option<usize>,
     width: usize,
 }
 
@@ -73,9 +81,17 @@ impl Plan {
             .collect();
         let aux = estimators
             .iter()
-            .any(|e| e.batch_dependent())
+            .any(|e| matches!(e, Estimator::MeanBaseline | Estimator::Whitened))
             .then_some(next);
-        let width = next + if aux.is_some() { 2 * d + 3 } else { 0 };
+        let mut width = next + if aux.is_some() { 2 * d + 3 } else { 0 };
+        let mut block = |e: Estimator, size: usize| {
+            estimators.contains(&e).then(|| {
+                width += size;
+                width - size
+            })
+        };
+        let minvar_total = block(Estimator::MinvarTotal, minvar::total_width(d));
+        let minvar_rtg = block(Estimator::MinvarRtg, minvar::rtg_width(d));
         Plan {
             estimators,
             gammas,
@@ -85,6 +101,8 @@ impl Plan {
             offsets,
             linear,
             aux,
+            minvar_total,
+            minvar_rtg,
             width,
         }
     }
@@ -117,9 +135,17 @@ impl Plan {
     /// The columns of a mean row that [`Plan::gradient`] reads for estimator k: its own block
     /// for a per-episode estimator, the auxiliary block for a batch-dependent one.
     pub fn columns(&self, k: usize) -> std::ops::Range<usize> {
-        match self.offsets[k] {
-            Some(off) => off..off + self.d,
-            None => {
+        let minvar = |start: Option<usize>, size: usize| {
+            let start = start.expect("a planned baseline has its block");
+            start..start + size
+        };
+        match (self.offsets[k], self.estimators[k]) {
+            (Some(off), _) => off..off + self.d,
+            (None, Estimator::MinvarTotal) => {
+                minvar(self.minvar_total, minvar::total_width(self.d))
+            }
+            (None, Estimator::MinvarRtg) => minvar(self.minvar_rtg, minvar::rtg_width(self.d)),
+            (None, _) => {
                 let aux = self
                     .aux
                     .expect("batch-dependent estimators have the auxiliary block");
@@ -201,6 +227,14 @@ impl Plan {
             row[aux + 2 * d + 1] = work.g.iter().map(|g| g * g).sum();
             row[aux + 2 * d + 2] = ep.len() as f64;
         }
+        if let Some(start) = self.minvar_total {
+            let out = &mut row[start..start + minvar::total_width(d)];
+            minvar::contribute_total(&ep.rewards, &ep.scores, d, out);
+        }
+        if let Some(start) = self.minvar_rtg {
+            let out = &mut row[start..start + minvar::rtg_width(d)];
+            minvar::contribute_rtg(&ep.rewards, &ep.scores, d, out, &mut work.psi);
+        }
     }
 
     /// Estimator k's batch gradient from a weighted mean row (sum_i w_i row_i / sum_i w_i).
@@ -214,6 +248,17 @@ impl Plan {
         if self.offsets[k].is_some() {
             out.copy_from_slice(cols);
             return GradNote::Ok;
+        }
+        match self.estimators[k] {
+            Estimator::MinvarTotal => {
+                minvar::gradient_total(cols, d, out);
+                return GradNote::Ok;
+            }
+            Estimator::MinvarRtg => {
+                minvar::gradient_rtg(cols, d, out);
+                return GradNote::Ok;
+            }
+            _ => {}
         }
         let (s, h) = (&cols[..d], &cols[d..2 * d]);
         let (a, q, t) = (cols[2 * d], cols[2 * d + 1], cols[2 * d + 2]);

@@ -32,6 +32,16 @@ pub enum Estimator {
     NStep(usize),
     /// GAE(lambda).
     Gae(f64),
+    /// Psi_t = R - b_j per score component j: the total return with the minimum-variance
+    /// constant baseline b_j = E[H_j^2 R] / E[H_j^2], H_j = sum_t s_tj (Peters and Schaal 2008,
+    /// episodic REINFORCE; Greensmith, Bartlett and Baxter 2004 for the general result),
+    /// estimated from the batch (see contrib.rs).
+    MinvarTotal,
+    /// Reward-to-go in its per-reward form, sum_t C_tj (r_t - b_tj) with C_tj = sum_{u<=t} s_uj,
+    /// and the time-dependent minimum-variance baseline b_tj = E[C_tj^2 r_t] / E[C_tj^2]
+    /// (Peters and Schaal 2008, the per-decision G(PO)MDP form), per time bin, estimated from
+    /// the batch (see contrib.rs).
+    MinvarRtg,
 }
 
 /// A log column an estimator cannot do without.
@@ -64,6 +74,8 @@ impl Estimator {
             "q" => Some(Estimator::Q),
             "advantage_q" => Some(Estimator::AdvantageQ),
             "td" => Some(Estimator::Td),
+            "minvar_total" => Some(Estimator::MinvarTotal),
+            "minvar_rtg" => Some(Estimator::MinvarRtg),
             _ => None,
         };
         if let Some(e) = simple {
@@ -89,7 +101,8 @@ impl Estimator {
         }
         Err(format!(
             "unknown estimator '{text}'; known: total, rtg, rtg_discounted, mean_baseline, \
-             whitened, value_baseline, q, advantage_q, td, nstep:N, gae:LAMBDA"
+             whitened, value_baseline, q, advantage_q, td, nstep:N, gae:LAMBDA, minvar_total, \
+             minvar_rtg"
         ))
     }
 
@@ -108,7 +121,9 @@ impl Estimator {
         Ok(out)
     }
 
-    /// Every estimator, with the default grids for gae and nstep.
+    /// Every estimator, with the default grids for gae and nstep; without `minvar_rtg`, whose
+    /// per-episode summary holds 3 d numbers per time bin (about 240 d instead of d): it is
+    /// opt-in, so that a default audit's memory and time stay those of the other estimators.
     pub fn default_set() -> Vec<Estimator> {
         let mut v = vec![
             Estimator::Total,
@@ -123,6 +138,7 @@ impl Estimator {
         ];
         v.extend([1, 5, 20].map(Estimator::NStep));
         v.extend([0.0, 0.5, 0.9, 0.95, 0.97, 1.0].map(Estimator::Gae));
+        v.push(Estimator::MinvarTotal);
         v
     }
 
@@ -132,7 +148,9 @@ impl Estimator {
             | Estimator::Rtg
             | Estimator::RtgDiscounted
             | Estimator::MeanBaseline
-            | Estimator::Whitened => &[],
+            | Estimator::Whitened
+            | Estimator::MinvarTotal
+            | Estimator::MinvarRtg => &[],
             Estimator::Q => &[Need::Q],
             Estimator::AdvantageQ => &[Need::Q, Need::Value],
             Estimator::ValueBaseline | Estimator::Td | Estimator::NStep(_) | Estimator::Gae(_) => {
@@ -144,7 +162,13 @@ impl Estimator {
     /// Whether the gradient depends on the whole batch (a baseline fitted on it), so it is not
     /// a plain mean of per-episode gradients.
     pub fn batch_dependent(self) -> bool {
-        matches!(self, Estimator::MeanBaseline | Estimator::Whitened)
+        matches!(
+            self,
+            Estimator::MeanBaseline
+                | Estimator::Whitened
+                | Estimator::MinvarTotal
+                | Estimator::MinvarRtg
+        )
     }
 
     /// Psi_t for a per-episode estimator, into `out` (length T). `g` must hold the discounted
@@ -180,7 +204,10 @@ impl Estimator {
                 debug_assert_eq!(deltas.len(), t_len, "TD residuals computed by the caller");
                 scan::gae(deltas, gamma, lambda, out);
             }
-            Estimator::MeanBaseline | Estimator::Whitened => {
+            Estimator::MeanBaseline
+            | Estimator::Whitened
+            | Estimator::MinvarTotal
+            | Estimator::MinvarRtg => {
                 panic!("{self} has no per-episode return proxy")
             }
         }
@@ -202,6 +229,8 @@ impl fmt::Display for Estimator {
             Estimator::NStep(n) => write!(f, "nstep:{n}"),
             // f64's Display prints the shortest text that reads back exactly: 0.95, 1, 0.
             Estimator::Gae(l) => write!(f, "gae:{l}"),
+            Estimator::MinvarTotal => f.write_str("minvar_total"),
+            Estimator::MinvarRtg => f.write_str("minvar_rtg"),
         }
     }
 }
@@ -212,7 +241,10 @@ mod tests {
 
     #[test]
     fn names_round_trip() {
-        for e in Estimator::default_set() {
+        for e in Estimator::default_set()
+            .into_iter()
+            .chain([Estimator::MinvarRtg])
+        {
             assert_eq!(Estimator::parse(&e.to_string()), Ok(e));
         }
         assert_eq!(Estimator::Gae(0.95).to_string(), "gae:0.95");

@@ -129,7 +129,13 @@ fn noise_line(ns: &NoiseScale) -> String {
 }
 
 fn gap_line(g: &BaselineGap) -> String {
-    if g.ratio > 1.0 {
+    let hint = if g.optimal == "minvar_total" {
+        " (total-return form; --estimators ...,minvar_rtg adds the time-dependent one for \
+         reward-to-go)"
+    } else {
+        ""
+    };
+    let line = if g.ratio > 1.0 {
         format!(
             "baseline: {} leaves {:.0}% more variance than the minimum-variance {} ({} vs {})",
             g.baseline,
@@ -139,6 +145,7 @@ fn gap_line(g: &BaselineGap) -> String {
             num(g.optimal_variance)
         )
     } else {
+        // A critic's state-dependent baseline can beat any baseline of time alone.
         format!(
             "baseline: {} has {:.0}% less variance than the minimum-variance {} ({} vs {}): \
              it uses more than the batch's time and score statistics (a critic's state values)",
@@ -148,5 +155,6 @@ fn gap_line(g: &BaselineGap) -> String {
             num(g.baseline_variance),
             num(g.optimal_variance)
         )
-    }
+    };
+    format!("{line}{hint}")
 }

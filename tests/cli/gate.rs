@@ -44,10 +44,11 @@ fn rules_file_and_star_rules() {
     assert_eq!(code, 0, "{err}");
     let v: serde_json::Value = serde_json::from_str(&out).unwrap();
     let outcomes = v["outcomes"].as_array().unwrap();
-    // `*` covers all 17 audited estimators (16 defaults plus gae:0.8, which the rule named).
+    // `*` covers all 18 audited estimators (17 defaults, minvar_total among them, plus
+    // gae:0.8, which the rule named).
     assert_eq!(
         outcomes.iter().filter(|o| o["rule"] == "ess >= 1").count(),
-        17
+        18
     );
     assert!(outcomes.iter().any(|o| o["estimator"] == "gae:0.8"));
     assert_eq!(v["passed"], true);
