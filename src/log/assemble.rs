@@ -149,7 +149,13 @@ impl Assembler {
         open.last_step = row.step;
         self.held += step_bytes;
         if self.held + self.ended_bytes > self.budget.bytes {
-            return Err(over_budget(self.budget, open_count, &open.episode, row, loc));
+            return Err(over_budget(
+                self.budget,
+                open_count,
+                &open.episode,
+                row,
+                loc,
+            ));
         }
         let ep = &mut open.episode;
         push_step(ep, row, &block.vectors[i * w..(i + 1) * w]);
@@ -331,7 +337,6 @@ impl Assembler {
     }
 }
 
-
 /// Bytes of a hash table of `(u128, (u64, u32))` entries holding `capacity`: buckets (a power
 /// of two, at most 7/8 full) of 32 bytes plus one control byte each.
 fn table_bytes(capacity: usize) -> u64 {
@@ -417,6 +422,9 @@ fn warn_no_bootstrap(warnings: &mut Warnings, id: &str, place: &str) {
         "truncated_without_bootstrap",
         "truncated episode without a bootstrap value (next_value on its last row): its tail \
          value is taken as 0, which biases value-based estimators",
-        Some(format!("episode '{}', {place}", fields::shown(id.as_bytes()))),
+        Some(format!(
+            "episode '{}', {place}",
+            fields::shown(id.as_bytes())
+        )),
     );
 }

@@ -52,7 +52,13 @@ pub struct Locator {
 impl Locate for Locator {
     fn at(&self, line: u64, col: Option<usize>) -> Position {
         // A list element is reported at its list column.
-        let col = col.map(|c| self.element_of.get(c).copied().filter(|_| c >= self.real).unwrap_or(c));
+        let col = col.map(|c| {
+            self.element_of
+                .get(c)
+                .copied()
+                .filter(|_| c >= self.real)
+                .unwrap_or(c)
+        });
         Position {
             file: format!("{}, {}", self.file, self.place(line)),
             line: None,
@@ -86,7 +92,12 @@ struct Plan {
 }
 
 /// Opens a columnar file and resolves its columns' roles.
-pub fn open(path: &str, file: &str, kind: Columnar, spec: &ColumnSpec) -> Result<(Batches, Schema)> {
+pub fn open(
+    path: &str,
+    file: &str,
+    kind: Columnar,
+    spec: &ColumnSpec,
+) -> Result<(Batches, Schema)> {
     let f = File::open(path).map_err(|e| Error::io(file, e))?;
     let bad = |e: String| {
         Error::input_hint(
@@ -98,35 +109,7 @@ pub fn open(path: &str, file: &str, kind: Columnar, spec: &ColumnSpec) -> Result
             "check that the file was written completely (a cut-off file has no footer)",
         )
     };
-    let (mut reader, schema, starts, unit): (BatchIter, SchemaRef, Vec<u64>, _) = match kind {
-        Columnar::Parquet => {
-            use parquet::arrow::arrow_reader::ParquetRecordBatchReaderBuilder;
-            let b = ParquetRecordBatchReaderBuilder::try_new(f).map_err(|e| bad(e.to_string()))?;
-            let mut starts = vec![0];
-            for g in b.metadata().row_groups() {
-                let last = *starts.last().expect("non-empty");
-                starts.push(last + g.num_rows().max(0) as u64);
-            }
-            starts.pop();
-            let schema = b.schema().clone();
-            let r = b
-                .with_batch_size(BATCH_ROWS)
-                .build()
-                .map_err(|e| bad(e.to_string()))?;
-            (Box::new(r), schema, starts, "row group")
-        }
-        Columnar::ArrowFile => {
-            let r = arrow_ipc::reader::FileReader::try_new(f, None).map_err(|e| bad(e.to_string()))?;
-            let schema = r.schema();
-            (Box::new(r), schema, Vec::new(), "batch")
-        }
-        Columnar::ArrowStream => {
-            let r = arrow_ipc::reader::StreamReader::try_new(std::io::BufReader::new(f), None)
-                .map_err(|e| bad(e.to_string()))?;
-            let schema = r.schema();
-            (Box::new(r), schema, Vec::new(), "batch")
-        }
-    };
+    let (mut reader, schema, starts, unit) = reader(f, kind, &bad)?;
     let first = match reader.next() {
         Some(Ok(b)) => Some(b),
         Some(Err(e)) => return Err(bad(format!("{unit} 0: {e}"))),
@@ -163,6 +146,45 @@ pub fn open(path: &str, file: &str, kind: Columnar, spec: &ColumnSpec) -> Result
         rows: 0,
     };
     Ok((batches, schema_r))
+}
+
+/// The batch reader of a columnar file, its schema, the first row of each row group (known
+/// from a Parquet footer; Arrow batches are counted as they arrive) and the group's name.
+fn reader(
+    f: File,
+    kind: Columnar,
+    bad: &dyn Fn(String) -> Error,
+) -> Result<(BatchIter, SchemaRef, Vec<u64>, &'static str)> {
+    Ok(match kind {
+        Columnar::Parquet => {
+            use parquet::arrow::arrow_reader::ParquetRecordBatchReaderBuilder;
+            let b = ParquetRecordBatchReaderBuilder::try_new(f).map_err(|e| bad(e.to_string()))?;
+            let mut starts = vec![0];
+            for g in b.metadata().row_groups() {
+                let last = *starts.last().expect("non-empty");
+                starts.push(last + g.num_rows().max(0) as u64);
+            }
+            starts.pop();
+            let schema = b.schema().clone();
+            let r = b
+                .with_batch_size(BATCH_ROWS)
+                .build()
+                .map_err(|e| bad(e.to_string()))?;
+            (Box::new(r), schema, starts, "row group")
+        }
+        Columnar::ArrowFile => {
+            let r =
+                arrow_ipc::reader::FileReader::try_new(f, None).map_err(|e| bad(e.to_string()))?;
+            let schema = r.schema();
+            (Box::new(r), schema, Vec::new(), "batch")
+        }
+        Columnar::ArrowStream => {
+            let r = arrow_ipc::reader::StreamReader::try_new(std::io::BufReader::new(f), None)
+                .map_err(|e| bad(e.to_string()))?;
+            let schema = r.schema();
+            (Box::new(r), schema, Vec::new(), "batch")
+        }
+    })
 }
 
 /// The list width of a column of lists of numbers: fixed by the type, or the first row's.
@@ -374,7 +396,9 @@ fn each_number(
         }
         let x = nums.get(r);
         if !x.is_finite() {
-            first.set(r, c, || format!("{x} is not a finite number (NaN and infinity are rejected)"));
+            first.set(r, c, || {
+                format!("{x} is not a finite number (NaN and infinity are rejected)")
+            });
             break;
         }
         put(r, x);
@@ -397,46 +421,50 @@ impl Plan {
             q: None,
             logp: None,
         }));
-        let rows = &mut out.rows;
-        self.ids(b.column(self.id), n, &mut first, rows, &mut out.ids);
-        each_number(b.column(self.reward).as_ref(), self.reward, n, &mut first, |r, x| {
-            rows[r].reward = x
-        });
+        self.ids(
+            b.column(self.id),
+            n,
+            &mut first,
+            &mut out.rows,
+            &mut out.ids,
+        );
+        self.scalars(b, n, &mut first, &mut out.rows);
+        self.flags(b, n, &mut first, &mut out.rows);
+        self.vectors(b, n, &mut first, &mut out.vectors);
+        if let Some((r, c, m)) = first.0 {
+            out.rows.truncate(r);
+            let w: usize = self.vectors.iter().map(|v| v.1.unwrap_or(1)).sum();
+            out.vectors.truncate(r * w);
+            let ids = out.rows.last().map_or(0, |x| x.id.0 + x.id.1);
+            out.ids.truncate(ids);
+            out.error = Some(Error::input(loc.at(start + r as u64 + 1, Some(c)), m));
+        }
+    }
+
+    /// Reward, step, value, q, logp and the optional bootstrap value.
+    fn scalars(&self, b: &RecordBatch, n: usize, first: &mut First, rows: &mut [Row]) {
+        each_number(
+            b.column(self.reward).as_ref(),
+            self.reward,
+            n,
+            first,
+            |r, x| rows[r].reward = x,
+        );
         if let Some(c) = self.step {
             let a = b.column(c);
             let nums = Nums::of(a.as_ref()).expect("type checked at open");
-            for r in 0..first.limit(n).min(n) {
+            let end = first.limit(n).min(n);
+            for (r, row) in rows.iter_mut().enumerate().take(end) {
                 match (a.is_null(r), nums.int(r)) {
-                    (false, Some(s)) => rows[r].step = Some(s),
+                    (false, Some(s)) => row.step = Some(s),
                     (true, _) => first.set(r, c, || NULL.to_string()),
                     (false, None) => first.set(r, c, || "the step is out of range".to_string()),
                 }
             }
         }
-        let mut flags = [false; 3].map(|_| vec![false; 0]);
-        for (k, col) in [self.terminated, self.truncated, self.done].into_iter().enumerate() {
-            let Some(c) = col else { continue };
-            flags[k] = vec![false; n];
-            let f = &mut flags[k];
-            each_number(b.column(c).as_ref(), c, n, &mut first, |r, x| f[r] = x != 0.0);
-            let nums = Nums::of(b.column(c).as_ref()).expect("type checked at open");
-            for r in 0..first.limit(n).min(n) {
-                let x = nums.get(r);
-                if x != 0.0 && x != 1.0 {
-                    first.set(r, c, || format!("cannot read {x} as a flag; use 0/1 or true/false"));
-                }
-            }
-        }
-        for r in 0..n {
-            let get = |k: usize| flags[k].get(r).copied().unwrap_or(false);
-            let (term, trunc, done) = (get(0), get(1), get(2));
-            // The done convention: terminated = done and not truncated.
-            rows[r].terminated = term || (done && !trunc);
-            rows[r].truncated = trunc;
-        }
         for (col, which) in [(self.value, 0), (self.q, 1), (self.logp, 2)] {
             let Some(c) = col else { continue };
-            each_number(b.column(c).as_ref(), c, n, &mut first, |r, x| match which {
+            each_number(b.column(c).as_ref(), c, n, first, |r, x| match which {
                 0 => rows[r].value = Some(x),
                 1 => rows[r].q = Some(x),
                 _ => rows[r].logp = Some(x),
@@ -446,25 +474,51 @@ impl Plan {
             // An empty bootstrap (null) is allowed, as an empty CSV field is.
             let a = b.column(c);
             let nums = Nums::of(a.as_ref()).expect("type checked at open");
-            for r in 0..first.limit(n).min(n) {
+            let end = first.limit(n).min(n);
+            for (r, row) in rows.iter_mut().enumerate().take(end) {
                 if a.is_valid(r) {
                     let x = nums.get(r);
                     if x.is_finite() {
-                        rows[r].next_value = Some(x);
+                        row.next_value = Some(x);
                     } else {
                         first.set(r, c, || format!("{x} is not a finite number"));
                     }
                 }
             }
         }
-        self.vectors(b, n, &mut first, &mut out.vectors);
-        if let Some((r, c, m)) = first.0 {
-            out.rows.truncate(r);
-            let w: usize = self.vectors.iter().map(|v| v.1.unwrap_or(1)).sum();
-            out.vectors.truncate(r * w);
-            let ids = out.rows.last().map_or(0, |x| x.id.0 + x.id.1);
-            out.ids.truncate(ids);
-            out.error = Some(Error::input(loc.at(start + r as u64 + 1, Some(c)), m));
+    }
+
+    /// The end flags (0/1 or booleans), resolved as the CSV rows are: terminated = done and
+    /// not truncated under the done convention.
+    fn flags(&self, b: &RecordBatch, n: usize, first: &mut First, rows: &mut [Row]) {
+        let mut flags: [Vec<bool>; 3] = Default::default();
+        for (k, col) in [self.terminated, self.truncated, self.done]
+            .into_iter()
+            .enumerate()
+        {
+            let Some(c) = col else { continue };
+            let f = &mut flags[k];
+            f.resize(n, false);
+            each_number(b.column(c).as_ref(), c, n, first, |r, x| {
+                if x == 0.0 || x == 1.0 {
+                    f[r] = x == 1.0;
+                }
+            });
+            let nums = Nums::of(b.column(c).as_ref()).expect("type checked at open");
+            for r in 0..first.limit(n).min(n) {
+                let x = nums.get(r);
+                if x != 0.0 && x != 1.0 {
+                    first.set(r, c, || {
+                        format!("cannot read {x} as a flag; use 0/1 or true/false")
+                    });
+                }
+            }
+        }
+        let get = |k: usize, r: usize| flags[k].get(r).copied().unwrap_or(false);
+        for (r, row) in rows.iter_mut().enumerate() {
+            let (term, trunc, done) = (get(0, r), get(1, r), get(2, r));
+            row.terminated = term || (done && !trunc);
+            row.truncated = trunc;
         }
     }
 
@@ -486,9 +540,13 @@ impl Plan {
                     }
                     ids.extend_from_slice(v);
                 }
+                (None, Some(Nums::U64(v))) => {
+                    use std::io::Write;
+                    let _ = write!(ids, "{}", v[r]);
+                }
                 (None, Some(nums)) => {
                     use std::io::Write;
-                    let _ = write!(ids, "{}", nums.int(r).unwrap_or(0));
+                    let _ = write!(ids, "{}", nums.int(r).expect("an integer column"));
                 }
                 (None, None) => unreachable!("type checked at open"),
             }
@@ -536,24 +594,33 @@ fn list_into(
     first: &mut First,
     mut put: impl FnMut(usize, usize, f64),
 ) {
-    let (values, bounds): (&ArrayRef, Box<dyn Fn(usize) -> (usize, usize) + '_>) =
-        match a.data_type() {
-            DataType::FixedSizeList(..) => {
-                let l = a.as_fixed_size_list();
-                let off = l.offset();
-                (l.values(), Box::new(move |r| ((off + r) * width, (off + r + 1) * width)))
-            }
-            DataType::List(_) => {
-                let l = a.as_list::<i32>();
-                let o = l.value_offsets();
-                (l.values(), Box::new(move |r| (o[r] as usize, o[r + 1] as usize)))
-            }
-            _ => {
-                let l = a.as_list::<i64>();
-                let o = l.value_offsets();
-                (l.values(), Box::new(move |r| (o[r] as usize, o[r + 1] as usize)))
-            }
-        };
+    type Bounds<'a> = Box<dyn Fn(usize) -> (usize, usize) + 'a>;
+    let (values, bounds): (&ArrayRef, Bounds) = match a.data_type() {
+        DataType::FixedSizeList(..) => {
+            let l = a.as_fixed_size_list();
+            let off = l.offset();
+            (
+                l.values(),
+                Box::new(move |r| ((off + r) * width, (off + r + 1) * width)),
+            )
+        }
+        DataType::List(_) => {
+            let l = a.as_list::<i32>();
+            let o = l.value_offsets();
+            (
+                l.values(),
+                Box::new(move |r| (o[r] as usize, o[r + 1] as usize)),
+            )
+        }
+        _ => {
+            let l = a.as_list::<i64>();
+            let o = l.value_offsets();
+            (
+                l.values(),
+                Box::new(move |r| (o[r] as usize, o[r + 1] as usize)),
+            )
+        }
+    };
     let nums = Nums::of(values.as_ref()).expect("type checked at open");
     let inner_nulls = values.null_count() > 0;
     for r in 0..first.limit(n).min(n) {
@@ -564,14 +631,19 @@ fn list_into(
         let (s, e) = bounds(r);
         if e - s != width {
             first.set(r, c, || {
-                format!("this row's list has {} numbers, the first row's {width}", e - s)
+                format!(
+                    "this row's list has {} numbers, the first row's {width}",
+                    e - s
+                )
             });
             return;
         }
         for (j, i) in (s..e).enumerate() {
             let x = nums.get(i);
             if (inner_nulls && values.is_null(i)) || !x.is_finite() {
-                first.set(r, c, || format!("element {j} of the list is missing or not finite"));
+                first.set(r, c, || {
+                    format!("element {j} of the list is missing or not finite")
+                });
                 return;
             }
             put(r, j, x);

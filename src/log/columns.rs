@@ -266,7 +266,13 @@ impl Schema {
         }
         let (roles, found, end_note) = resolve_roles(spec, &headers, file)?;
         let env = match &spec.env {
-            Some(name) => Some(find_required(name, "--env-col", &headers, file, "--env-col")?),
+            Some(name) => Some(find_required(
+                name,
+                "--env-col",
+                &headers,
+                file,
+                "--env-col",
+            )?),
             None => None,
         };
         let mut schema = Schema {
@@ -341,7 +347,13 @@ impl Schema {
             }
             (Some(_), None) | (None, None) => None,
         };
-        let scalar: Vec<usize> = self.roles.iter().flatten().chain(&self.env).copied().collect();
+        let scalar: Vec<usize> = self
+            .roles
+            .iter()
+            .flatten()
+            .chain(&self.env)
+            .copied()
+            .collect();
         let found: Vec<usize> = (0..self.real)
             .filter(|i| !scalar.contains(i) && self.headers[*i].starts_with(prefix.as_str()))
             .collect();
@@ -362,11 +374,26 @@ impl Schema {
                 ),
             ));
         }
-        let width = widths[c].expect("a list column");
+        self.add_list(v, c, widths[c].expect("a list column"), file)
+    }
+
+    /// Adds list column `c` (lists of `width` numbers) as vector role `v`: its elements
+    /// become columns `name[k]` past the file's.
+    fn add_list(
+        &mut self,
+        v: VectorRole,
+        c: usize,
+        width: usize,
+        file: &str,
+    ) -> Result<Vec<usize>> {
         let first = self.headers.len();
         if first.saturating_add(width) > crate::limits::MAX_COLUMNS {
             return Err(Error::input(
-                at(Some(c)),
+                Position {
+                    file: file.to_string(),
+                    line: Some(1),
+                    column: Some((c + 1, self.headers[c].clone())),
+                },
                 format!(
                     "lists of {width} numbers: more than the limit of {} columns",
                     crate::limits::MAX_COLUMNS
@@ -521,7 +548,13 @@ fn resolve_roles(spec: &ColumnSpec, headers: &[String], file: &str) -> Result<Ro
         let i = role.index();
         if spec.explicit[i] {
             let flag = format!("--col {}", role.key());
-            roles[i] = Some(find_required(spec.header(role), role.key(), headers, file, &flag)?);
+            roles[i] = Some(find_required(
+                spec.header(role),
+                role.key(),
+                headers,
+                file,
+                &flag,
+            )?);
             found[i] = Found::Option;
             continue;
         }
@@ -532,7 +565,11 @@ fn resolve_roles(spec: &ColumnSpec, headers: &[String], file: &str) -> Result<Ro
             .find_map(|(k, name)| headers.iter().position(|h| h == name).map(|p| (k, p)));
         if let Some((k, p)) = hit {
             roles[i] = Some(p);
-            found[i] = if k == 0 { Found::Default } else { Found::Synonym };
+            found[i] = if k == 0 {
+                Found::Default
+            } else {
+                Found::Synonym
+            };
         } else if role.required() && !(role == Role::Episode && spec.env.is_some()) {
             let flag = format!("--col {}", role.key());
             find_required(role.key(), role.key(), headers, file, &flag)?;
@@ -597,7 +634,9 @@ fn find_required(
         return Ok(p);
     }
     let hint = match closest(wanted, headers) {
-        Some(near) if flag == "--env-col" => format!("did you mean '{near}'? If so, pass --env-col {near}"),
+        Some(near) if flag == "--env-col" => {
+            format!("did you mean '{near}'? If so, pass --env-col {near}")
+        }
         Some(near) => format!("did you mean '{near}'? If so, pass {flag}={near}"),
         None if flag == "--env-col" => "name the column that holds it with --env-col HEADER".into(),
         None => format!("name the column that holds it with {flag}=HEADER"),

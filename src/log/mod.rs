@@ -274,6 +274,7 @@ impl LogReader {
     }
 
     /// The log's name for reports: its file, or its files joined with commas.
+    #[allow(clippy::misnamed_getters)]
     pub fn file(&self) -> &str {
         &self.label
     }
@@ -459,7 +460,12 @@ fn open_file(path: &str, options: &ReadOptions) -> Result<Opened> {
     }
     let src = source::open(path, options.progress)?;
     let compressed = src.compressed;
-    let opened = open_csv(src.reader, &name, options, Tuning::for_budget(options.budget));
+    let opened = open_csv(
+        src.reader,
+        &name,
+        options,
+        Tuning::for_budget(options.budget),
+    );
     if compressed {
         // Damaged deflate data can decode into plausible garbage; gzip's checksum is only
         // read at the end of the stream, so on any input error look there first.
