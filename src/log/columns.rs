@@ -320,7 +320,7 @@ impl Schema {
         };
         let list = self.headers[..self.real].iter().position(|h| h == name);
         let list = match (list, explicit) {
-            (None, Some(_)) if widths.is_empty() => {
+            (_, Some(_)) if widths.is_empty() => {
                 return Err(Error::input_hint(
                     at(None),
                     format!("--col {}={name}: a CSV log has no list columns", v.key()),
@@ -759,5 +759,68 @@ mod tests {
         .unwrap_err()
         .to_string();
         assert!(e.contains("column 3"), "{e}");
+    }
+
+    // The trade's names for the end flags are found by default and reported as such; a done
+    // column is read only without a terminated column, unless named.
+    #[test]
+    fn end_flag_synonyms_and_the_done_convention() {
+        let s = Schema::resolve(
+            &ColumnSpec::default(),
+            hs(&["episode", "reward", "dones", "timeouts"]),
+            "f",
+        )
+        .unwrap();
+        assert_eq!(
+            (s.column(Role::Done), s.column(Role::Truncated)),
+            (Some(2), Some(3))
+        );
+        assert_eq!(s.column(Role::Terminated), None);
+        let e = s.end_flags();
+        assert_eq!(e.convention, "done+truncated");
+        assert!(
+            e.reason
+                .contains("'timeouts' read as truncated (a name the trade"),
+            "{e:?}"
+        );
+        let both = hs(&["episode", "reward", "done", "terminated", "truncated"]);
+        let s = Schema::resolve(&ColumnSpec::default(), both.clone(), "f").unwrap();
+        assert_eq!(
+            (s.column(Role::Done), s.column(Role::Terminated)),
+            (None, Some(3))
+        );
+        assert!(s.end_flags().reason.contains("'done' not read as done"));
+        let mut spec = ColumnSpec::default();
+        spec.remap("done=done").unwrap();
+        let s = Schema::resolve(&spec, both.clone(), "f").unwrap();
+        assert_eq!(
+            (s.column(Role::Done), s.column(Role::Terminated)),
+            (Some(2), None)
+        );
+        spec.remap("terminated=terminated").unwrap();
+        assert!(Schema::resolve(&spec, both, "f").is_err());
+    }
+
+    #[test]
+    fn env_column_replaces_the_episode_id_and_lists_need_a_columnar_file() {
+        let spec = ColumnSpec {
+            env: Some("env".into()),
+            ..ColumnSpec::default()
+        };
+        let s = Schema::resolve(&spec, hs(&["env", "reward", "done"]), "f").unwrap();
+        assert_eq!((s.id_column(), s.column(Role::Episode)), (0, None));
+        let e = Schema::resolve(&spec, hs(&["envs", "reward"]), "f").unwrap_err();
+        assert!(e.to_string().contains("did you mean 'envs'"), "{e}");
+        let mut spec = ColumnSpec::default();
+        spec.remap("obs=robot.state").unwrap();
+        let h = hs(&["episode", "reward", "robot.state"]);
+        let e = Schema::resolve(&spec, h.clone(), "f")
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("a CSV log has no list columns"), "{e}");
+        let s = Schema::resolve_with_lists(&spec, h, &[None, None, Some(3)], "f").unwrap();
+        assert_eq!(s.obs, vec![3, 4, 5]);
+        assert_eq!(s.headers[5], "robot.state[2]");
+        assert_eq!(s.file_columns(), 3);
     }
 }
