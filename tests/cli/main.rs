@@ -15,5 +15,6 @@ mod inspect;
 mod network;
 mod policy;
 mod projection;
+mod significance;
 mod stacks;
 mod sweep;

@@ -1,0 +1,82 @@
+//! Issue 14: the bias test's p-values and table-wide decisions in the JSON report, and the
+//! gradient noise scale's identity with episodes_for_snr.
+
+use crate::util::{demo, run_json};
+
+// McCandlish et al. (2018, eq. 2.9): B_simple = tr(Sigma) / |G|^2 = N V / signal; at target
+// snr 1 an unbiased estimator's episodes_for_snr = N V / (signal - 0) is the same expression,
+// rounded up (stats/noise.rs). Checked to 1e-12 against the report's own figures.
+#[test]
+fn noise_scale_equals_episodes_for_snr_at_target_one() {
+    let v = run_json(&[
+        "audit",
+        &demo("docking_rover.csv"),
+        "--resamples",
+        "300",
+        "--target-snr",
+        "1",
+        "--format",
+        "json",
+    ]);
+    let n = v["input"]["episodes"].as_f64().unwrap();
+    let signal = v["signal"].as_f64().unwrap();
+    let mut checked = 0;
+    for row in v["estimators"].as_array().unwrap() {
+        let ns = row["noise_scale"].as_f64().unwrap();
+        let want = n * row["variance"].as_f64().unwrap() / signal;
+        assert!(
+            (ns / want - 1.0).abs() < 1e-12,
+            "{}: {ns} vs {want}",
+            row["name"]
+        );
+        if row["bias_sq"].as_f64() == Some(0.0) {
+            let planned = row["episodes_for_snr"].as_u64().unwrap();
+            assert_eq!(planned, (ns.ceil() as u64).max(1), "{}", row["name"]);
+            checked += 1;
+        }
+    }
+    assert!(
+        checked >= 2,
+        "the reference and at least one more unbiased row"
+    );
+    let reference = &v["noise_scale"][0];
+    assert_eq!(reference["role"], "reference");
+    let iv = &reference["episodes_interval"];
+    assert!(iv["low"].as_f64().unwrap() <= reference["episodes"].as_f64().unwrap());
+}
+
+// Holm (1979): adjusted p >= raw p, and detection follows the adjusted value at the level.
+#[test]
+fn json_keeps_raw_and_adjusted_p_values() {
+    for method in ["holm", "bh"] {
+        let v = run_json(&[
+            "audit",
+            &demo("docking_rover.csv"),
+            "--resamples",
+            "300",
+            "--multiplicity",
+            method,
+            "--format",
+            "json",
+        ]);
+        let sig = &v["significance"];
+        assert_eq!(sig["multiplicity"], method);
+        let level = sig["level"].as_f64().unwrap();
+        let mut tested = 0;
+        for row in v["estimators"].as_array().unwrap() {
+            if row["reference"] == true {
+                assert!(row["bias_p"].is_null());
+                continue;
+            }
+            let (p, adj) = (
+                row["bias_p"].as_f64().unwrap(),
+                row["bias_p_adjusted"].as_f64().unwrap(),
+            );
+            assert!(p > 0.0 && p <= adj && adj <= 1.0, "{}", row["name"]);
+            let expect = adj <= level && row["bias_sq"].as_f64().unwrap() > 0.0;
+            assert_eq!(row["bias_detected"], expect, "{}", row["name"]);
+            tested += 1;
+        }
+        assert_eq!(sig["tested"], tested);
+    }
+}
