@@ -19,6 +19,9 @@ pub struct Episode {
     /// The id's bytes exactly as in the log: what identifies, orders and folds the episode
     /// (two ids may decode to the same `id`, e.g. different invalid UTF-8 bytes).
     pub key: Vec<u8>,
+    /// The environment value of a vector-environment log; None when the log has no environment
+    /// column.
+    pub env: Option<String>,
     /// Line of its first row in the log, for messages.
     pub first_line: u64,
     /// Line of each step's row in the log, for messages about one step (empty for episodes
@@ -34,6 +37,11 @@ pub struct Episode {
     pub obs: Vec<f64>,
     pub act_dim: usize,
     pub act: Vec<f64>,
+    /// Logged per-step columns asked for by name (`ColumnSpec::logged`), row-major
+    /// (`T x logged_names.len()`): a training stack's own advantages or value targets.
+    pub logged: Vec<f64>,
+    /// The headers of the logged columns, in the order of `logged`'s rows.
+    pub logged_names: std::sync::Arc<[String]>,
     pub end: End,
 }
 
@@ -51,6 +59,7 @@ impl Episode {
         Episode {
             id: String::from_utf8_lossy(raw).into_owned(),
             key: raw.to_vec(),
+            env: None,
             first_line,
             lines: Vec::new(),
             rewards: Vec::new(),
@@ -63,6 +72,8 @@ impl Episode {
             obs: Vec::new(),
             act_dim: layout.act_dim,
             act: Vec::new(),
+            logged: Vec::new(),
+            logged_names: layout.logged.clone(),
             end: End::Terminated,
         }
     }
@@ -88,6 +99,13 @@ impl Episode {
         }
     }
 
+    /// The logged column `name` at every step, when the episode carries it.
+    pub fn logged_column(&self, name: &str) -> Option<Vec<f64>> {
+        let k = self.logged_names.iter().position(|n| n == name)?;
+        let w = self.logged_names.len();
+        Some((0..self.len()).map(|t| self.logged[t * w + k]).collect())
+    }
+
     /// Sum of rewards (the undiscounted return).
     pub fn total_reward(&self) -> f64 {
         self.rewards.iter().sum()
@@ -95,7 +113,7 @@ impl Episode {
 }
 
 /// Which optional per-step arrays an episode carries, and the vector widths.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+#[derive(Debug, Clone, PartialEq, Eq, Default)]
 pub struct Layout {
     pub value: bool,
     pub q: bool,
@@ -103,4 +121,6 @@ pub struct Layout {
     pub score_dim: usize,
     pub obs_dim: usize,
     pub act_dim: usize,
+    /// Headers of the logged per-step columns carried as they are (see `Episode::logged`).
+    pub logged: std::sync::Arc<[String]>,
 }

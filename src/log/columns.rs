@@ -77,6 +77,9 @@ pub struct ColumnSpec {
     pub score_prefix: String,
     pub obs_prefix: String,
     pub act_prefix: String,
+    /// Headers of per-step columns carried into each episode as they are (`Episode::logged`):
+    /// a training stack's own advantages or value targets, to check or to audit.
+    pub logged: Vec<String>,
 }
 
 impl Default for ColumnSpec {
@@ -87,6 +90,7 @@ impl Default for ColumnSpec {
             score_prefix: "score_".into(),
             obs_prefix: "obs_".into(),
             act_prefix: "act_".into(),
+            logged: Vec::new(),
         }
     }
 }
@@ -125,6 +129,8 @@ pub struct Schema {
     pub scores: Vec<usize>,
     pub obs: Vec<usize>,
     pub act: Vec<usize>,
+    /// Columns of `ColumnSpec::logged`, in that order.
+    pub logged: Vec<usize>,
 }
 
 /// One line of the "which header got which role" table.
@@ -191,7 +197,9 @@ impl Schema {
                 .collect();
             order_by_index(&headers, found, prefix, file)
         };
+        let logged = resolve_logged(spec, &headers, file)?;
         Ok(Schema {
+            logged,
             scores: vector(&spec.score_prefix)?,
             obs: vector(&spec.obs_prefix)?,
             act: vector(&spec.act_prefix)?,
@@ -238,6 +246,31 @@ impl Schema {
         }
         out
     }
+}
+
+/// The columns of the logged headers the user asked for: each must exist (with a suggestion
+/// when it does not).
+fn resolve_logged(spec: &ColumnSpec, headers: &[String], file: &str) -> Result<Vec<usize>> {
+    spec.logged
+        .iter()
+        .map(|wanted| {
+            headers.iter().position(|h| h == wanted).ok_or_else(|| {
+                let hint = match closest(wanted, headers) {
+                    Some(near) => format!("did you mean '{near}'?"),
+                    None => format!("the header row has: {}", headers.join(", ")),
+                };
+                Error::input_hint(
+                    Position {
+                        file: file.to_string(),
+                        line: Some(1),
+                        column: None,
+                    },
+                    format!("logged column '{wanted}' is missing from the header"),
+                    hint,
+                )
+            })
+        })
+        .collect()
 }
 
 /// Orders prefixed columns by their numeric suffix (`score_10` after `score_9`); if any suffix

@@ -196,6 +196,7 @@ impl LogReader {
             score_dim: schema.scores.len(),
             obs_dim: schema.obs.len(),
             act_dim: schema.act.len(),
+            logged: options.columns.logged.clone().into(),
         };
         let has_end_flags = schema.has(Role::Terminated) || schema.has(Role::Truncated);
         let mut warnings = Warnings::default();
@@ -468,10 +469,11 @@ impl LogReader {
 
 /// Appends a row's values (`v`: its scores, obs and act) to its episode.
 fn push_step(ep: &mut Episode, row: &Row, v: &[f64]) {
-    let (d, o) = (ep.score_dim, ep.obs_dim);
+    let (d, o, a) = (ep.score_dim, ep.obs_dim, ep.act_dim);
     ep.scores.extend_from_slice(&v[..d]);
     ep.obs.extend_from_slice(&v[d..d + o]);
-    ep.act.extend_from_slice(&v[d + o..]);
+    ep.act.extend_from_slice(&v[d + o..d + o + a]);
+    ep.logged.extend_from_slice(&v[d + o + a..]);
     ep.rewards.push(row.reward);
     for (x, xs) in [
         (row.value, ep.values.as_mut()),

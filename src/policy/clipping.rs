@@ -171,6 +171,7 @@ mod tests {
         Episode {
             id: "e".into(),
             key: b"e".to_vec(),
+            env: None,
             first_line: 2,
             lines: Vec::new(),
             rewards: vec![0.0; acts.len()],
@@ -183,6 +184,8 @@ mod tests {
             obs: Vec::new(),
             act_dim: 1,
             act: acts.to_vec(),
+            logged: Vec::new(),
+            logged_names: Vec::new().into(),
             end: End::Terminated,
         }
     }
