@@ -611,11 +611,26 @@ impl AuditOptions {
     }
 }
 
+/// Opens the log for an audit, carrying the columns of `column:HEADER` estimators.
+fn open_for(log: &LogArgs, cfg: &AuditConfig) -> Result<LogReader> {
+    let mut options = log.read_options()?;
+    let mut logged: Vec<String> = Vec::new();
+    for e in cfg.estimators.iter().flatten().chain([&cfg.reference]) {
+        if let Estimator::Column(h) = e
+            && !logged.iter().any(|l| l == h)
+        {
+            logged.push(h.to_string());
+        }
+    }
+    options.columns.logged = logged;
+    LogReader::open(&log.log, &options)
+}
+
 fn run_audit(a: AuditArgs) -> Result<u8> {
     let mut cfg = a.audit.config(&a.log)?;
     let slots = a.output.check(&a.audit.inputs(&a.log))?;
     cfg.critic = a.audit.fit_critic(&a.log, cfg.gamma)?;
-    let report = audit::run(a.log.open()?, &cfg)?;
+    let report = audit::run(open_for(&a.log, &cfg)?, &cfg)?;
     slots.write(report::render(&report, a.format()), || {
         report::svg::audit_bars(&report)
     })?;
@@ -654,7 +669,11 @@ fn run_gate(g: GateArgs) -> Result<u8> {
     let baseline = g.baseline.as_deref().map(Baseline::load).transpose()?;
     gate::include_named(&mut cfg, &rules);
     cfg.critic = g.audit.fit_critic(&g.log, cfg.gamma)?;
-    let result = gate::run(audit::run(g.log.open()?, &cfg)?, &rules, baseline.as_ref())?;
+    let result = gate::run(
+        audit::run(open_for(&g.log, &cfg)?, &cfg)?,
+        &rules,
+        baseline.as_ref(),
+    )?;
     let text = match g.format {
         GateFormat::Text => report::gate::render_text(&result),
         GateFormat::Markdown => report::gate::render_markdown(&result),

@@ -92,11 +92,11 @@ pub fn chain(c: &Claimed, links: &[Link]) -> Vec<f64> {
 pub fn streams(batch: &Batch, at: &[(usize, usize)], whole: bool) -> Vec<Vec<usize>> {
     let mut keys: Vec<Option<&str>> = Vec::new();
     let mut out: Vec<Vec<usize>> = Vec::new();
-    for i in 0..at.len() {
+    for (i, &(e, _)) in at.iter().enumerate() {
         let env = if whole {
             None
         } else {
-            batch.episodes[at[i].0].env.as_deref()
+            batch.episodes[e].env.as_deref()
         };
         let k = match keys.iter().position(|x| *x == env) {
             Some(k) => k,
@@ -180,7 +180,7 @@ fn carried(batch: &Batch, c: &Claimed, at: &[(usize, usize)], s: &[Vec<usize>]) 
     })
 }
 
-/// The end flag read one step early (`shift` = 1) or late (`shift` = -1) along each stream.
+/// The end flag read one step early (`early`) or late along each stream.
 fn shifted(
     batch: &Batch,
     c: &Claimed,
