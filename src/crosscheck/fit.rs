@@ -25,6 +25,8 @@ pub const MIN_RUN: usize = 4;
 pub const FIT_STEPS: usize = 2000;
 /// Refinement levels of the gamma/lambda grid.
 pub const LEVELS: usize = 9;
+/// Moves of a refinement grid whose best point lies on its edge, at most.
+pub const MAX_MOVES: usize = 200;
 
 /// Running least-squares fit of y on x (Welford updates, stable for large offsets).
 #[derive(Debug, Clone, Copy, Default)]
@@ -173,7 +175,7 @@ fn objective(batch: &Batch, col: &Column, c: &Claimed, episodes: usize) -> f64 {
     if sum.is_finite() { sum } else { f64::MAX }
 }
 
-/// Points of a grid from lo to hi by step, clamped to [min, max].
+/// `points` points from center - half to center + half, clamped to [min, max].
 fn axis(center: f64, half: f64, points: usize, min: f64, max: f64) -> Vec<f64> {
     let step = 2.0 * half / (points - 1) as f64;
     (0..points)
@@ -195,31 +197,53 @@ pub fn gamma_lambda(
     }
     let gae = matches!(cfg.claim.claim, Claim::Gae(_));
     let lambda0 = cfg.claim.lambda().unwrap_or(1.0);
-    let (mut gammas, mut lambdas) = (axis(0.75, 0.25, 51, 0.0, 1.0), axis(0.5, 0.5, 11, 0.0, 1.0));
-    if !gae {
-        lambdas = vec![lambda0];
-    }
-    let (mut gstep, mut lstep) = (0.01, 0.1);
+    let eval =
+        |g: f64, l: f64| objective(batch, col, &cfg.claim.with(g, gae.then_some(l)), episodes);
+    // The coarse grid.
     let mut best = (cfg.claim.gamma, lambda0, f64::INFINITY);
-    for level in 0..=LEVELS {
-        for &g in &gammas {
-            for &l in &lambdas {
-                let c = cfg.claim.with(g, gae.then_some(l));
-                let f = objective(batch, col, &c, episodes);
+    let lambdas = if gae {
+        axis(0.5, 0.5, 11, 0.0, 1.0)
+    } else {
+        vec![lambda0]
+    };
+    for g in axis(0.75, 0.25, 51, 0.0, 1.0) {
+        for &l in &lambdas {
+            let f = eval(g, l);
+            if f < best.2 {
+                best = (g, l, f);
+            }
+        }
+    }
+    // Refinements: an 11 x 11 grid one step either side of the best point with a fifth of the
+    // step; when the best point lies on the grid's edge (the minimum is further along a
+    // valley), the grid moves there at the same step instead of shrinking.
+    let (mut gstep, mut lstep) = (0.01, 0.1);
+    let (mut level, mut moves) = (0, 0);
+    while level < LEVELS {
+        let gammas = axis(best.0, gstep, 11, 0.0, 1.0);
+        let lambdas = if gae {
+            axis(best.1, lstep, 11, 0.0, 1.0)
+        } else {
+            vec![lambda0]
+        };
+        let mut edge = false;
+        for (i, &g) in gammas.iter().enumerate() {
+            for (j, &l) in lambdas.iter().enumerate() {
+                let f = eval(g, l);
                 if f < best.2 {
                     best = (g, l, f);
+                    let on = |k: usize, x: f64| (k == 0 || k == 10) && x > 0.0 && x < 1.0;
+                    edge = on(i, g) || (gae && on(j, l));
                 }
             }
         }
-        if level == LEVELS {
-            break;
+        if edge && moves < MAX_MOVES {
+            moves += 1;
+            continue;
         }
-        gammas = axis(best.0, gstep, 11, 0.0, 1.0);
         gstep /= 5.0;
-        if gae {
-            lambdas = axis(best.1, lstep, 11, 0.0, 1.0);
-            lstep /= 5.0;
-        }
+        lstep /= 5.0;
+        level += 1;
     }
     let fitted = cfg.claim.with(best.0, gae.then_some(best.1));
     let mut params = BTreeMap::new();
