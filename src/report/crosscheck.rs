@@ -286,7 +286,7 @@ pub fn render_table(r: &CrosscheckReport) -> String {
         if let Some(f) = &c.agreement.first_difference {
             out.push_str(&format!("  first      {}\n", row_text(f)));
         }
-        for (k, e) in c.agreement.episodes.iter().enumerate() {
+        for (k, e) in c.agreement.episodes.iter().take(5).enumerate() {
             let lead = if k == 0 {
                 "  episodes  "
             } else {
