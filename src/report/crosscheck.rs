@@ -303,8 +303,8 @@ pub fn render_table(r: &CrosscheckReport) -> String {
                 "variant", "explains", "matching", "affected", "episodes", "first line", "fitted"
             ));
             for v in &c.variants {
-                out.push_str(&format!(
-                    "    {:<34} {:<8} {:>9} {:>9} {:>9} {:>10}  {}\n",
+                let line = format!(
+                    "    {:<34} {:<8} {:>9} {:>9} {:>9} {:>10}  {}",
                     v.name,
                     if v.explains { "YES" } else { "no" },
                     v.steps_matching,
@@ -312,7 +312,9 @@ pub fn render_table(r: &CrosscheckReport) -> String {
                     v.affected_episodes,
                     v.first_affected_line.map_or("-".into(), |l| l.to_string()),
                     params_text(&v.parameters)
-                ));
+                );
+                out.push_str(line.trim_end());
+                out.push('\n');
             }
         }
         for w in &c.worst_rows {
