@@ -29,6 +29,7 @@ use crate::log::LogReader;
 use crate::report::crosscheck::{
     Agreement, ColumnReport, CrosscheckReport, EpisodeCount, Input, Row, VariantResult,
 };
+use crate::report::finite;
 use tolerance::{Precision, Rule};
 
 /// The estimator the training stack claims its column follows.
@@ -310,6 +311,20 @@ impl Column {
     }
 }
 
+impl Column {
+    /// Whether step i differs beyond tolerance. A step whose reference or tolerance overflowed
+    /// f64 cannot be checked and counts as differing (see [`Column::unchecked`]).
+    pub fn differs(&self, i: usize) -> bool {
+        let d = (self.logged[i] - self.reference[i]).abs();
+        self.unchecked(i) || d > self.tol[i]
+    }
+
+    /// The reference or the tolerance of step i is not a finite number.
+    pub fn unchecked(&self, i: usize) -> bool {
+        !(self.reference[i].is_finite() && self.tol[i].is_finite())
+    }
+}
+
 /// The precision of the inputs: rewards, values and bootstrap values.
 fn input_precision(batch: &Batch) -> Precision {
     let tails: Vec<f64> = batch.episodes.iter().map(|e| e.tail_value()).collect();
@@ -329,9 +344,9 @@ pub fn row(batch: &Batch, at: &[(usize, usize)], col: &Column, i: usize) -> Row 
         episode: batch.episodes[e].id.clone(),
         step: t,
         logged: col.logged[i],
-        reference: col.reference[i],
-        difference: col.logged[i] - col.reference[i],
-        tolerance: col.tol[i],
+        reference: finite(col.reference[i]),
+        difference: finite(col.logged[i] - col.reference[i]),
+        tolerance: finite(col.tol[i]),
     }
 }
 
@@ -340,29 +355,47 @@ pub fn agreement(batch: &Batch, at: &[(usize, usize)], col: &Column) -> Agreemen
     let n = col.logged.len();
     let mut max_abs: f64 = 0.0;
     let mut max_rel: Option<f64> = None;
-    let mut differing = 0;
-    let mut first = None;
+    let (mut differing, mut unchecked) = (0, 0);
+    let mut first: Option<(u64, usize)> = None;
     let mut per_episode = vec![0u64; batch.episodes.len()];
     for i in 0..n {
+        // f64::max ignores NaN: an overflowed step makes the maxima undefined instead.
         let d = (col.logged[i] - col.reference[i]).abs();
-        max_abs = max_abs.max(d);
+        max_abs = if d.is_nan() {
+            f64::INFINITY
+        } else {
+            max_abs.max(d)
+        };
         if col.reference[i] != 0.0 {
             let r = d / col.reference[i].abs();
+            let r = if r.is_nan() { f64::INFINITY } else { r };
             max_rel = Some(max_rel.map_or(r, |m: f64| m.max(r)));
         }
-        if d > col.tol[i] {
+        unchecked += u64::from(col.unchecked(i));
+        if col.differs(i) {
             differing += 1;
             per_episode[at[i].0] += 1;
-            if first.is_none() {
-                first = Some(i);
+            // The first differing step in file order (lowest line), not in episode order.
+            let line = batch.line(at[i].0, at[i].1);
+            if first.is_none_or(|(l, _)| line < l) {
+                first = Some((line, i));
             }
         }
     }
-    // The first differing step in file order (lowest line), not in episode order.
-    let first = (0..n)
-        .filter(|&i| (col.logged[i] - col.reference[i]).abs() > col.tol[i])
-        .min_by_key(|&i| batch.line(at[i].0, at[i].1))
-        .or(first);
+    Agreement {
+        max_abs_error: finite(max_abs),
+        max_rel_error: max_rel.and_then(finite),
+        steps_differing: differing,
+        unchecked_steps: unchecked,
+        share_differing: (n > 0).then(|| differing as f64 / n as f64),
+        episodes_differing: per_episode.iter().filter(|c| **c > 0).count() as u64,
+        first_difference: first.map(|(_, i)| row(batch, at, col, i)),
+        episodes: most_differing(batch, &per_episode),
+    }
+}
+
+/// The episodes with the most differing steps (at most 10), ties by first line.
+fn most_differing(batch: &Batch, per_episode: &[u64]) -> Vec<EpisodeCount> {
     let mut episodes: Vec<EpisodeCount> = per_episode
         .iter()
         .enumerate()
@@ -374,34 +407,23 @@ pub fn agreement(batch: &Batch, at: &[(usize, usize)], col: &Column) -> Agreemen
             differing: *c,
         })
         .collect();
-    let episodes_differing = episodes.len() as u64;
     episodes.sort_by(|a, b| {
         b.differing
             .cmp(&a.differing)
             .then(a.first_line.cmp(&b.first_line))
     });
     episodes.truncate(10);
-    Agreement {
-        max_abs_error: crate::report::finite(max_abs),
-        max_rel_error: max_rel.and_then(crate::report::finite),
-        steps_differing: differing,
-        share_differing: if n == 0 {
-            None
-        } else {
-            Some(differing as f64 / n as f64)
-        },
-        episodes_differing,
-        first_difference: first.map(|i| row(batch, at, col, i)),
-        episodes,
-    }
+    episodes
 }
 
 /// The rows that differ most relative to their tolerance (at most `k`).
 pub fn worst_rows(batch: &Batch, at: &[(usize, usize)], col: &Column, k: usize) -> Vec<Row> {
-    let mut idx: Vec<usize> = (0..col.logged.len())
-        .filter(|&i| (col.logged[i] - col.reference[i]).abs() > col.tol[i])
-        .collect();
-    let ratio = |i: usize| (col.logged[i] - col.reference[i]).abs() / col.tol[i];
+    let mut idx: Vec<usize> = (0..col.logged.len()).filter(|&i| col.differs(i)).collect();
+    // Unchecked steps (NaN ratio) first, then by how far beyond tolerance.
+    let ratio = |i: usize| {
+        let r = (col.logged[i] - col.reference[i]).abs() / col.tol[i];
+        if r.is_nan() { f64::INFINITY } else { r }
+    };
     idx.sort_by(|&a, &b| ratio(b).total_cmp(&ratio(a)).then(a.cmp(&b)));
     idx.truncate(k);
     idx.into_iter().map(|i| row(batch, at, col, i)).collect()
@@ -450,12 +472,8 @@ pub fn check_column(batch: &Batch, cfg: &CheckConfig, kind: Kind, header: &str) 
             unit: col.rule.unit(),
             column_precision: tolerance::precision(&col.logged).describe(),
             input_precision: input_precision(batch).describe(),
-            min: t
-                .iter()
-                .copied()
-                .fold(f64::INFINITY, f64::min)
-                .min(f64::MAX),
-            max: t.iter().copied().fold(0.0, f64::max).min(f64::MAX),
+            min: finite(t.iter().copied().fold(f64::INFINITY, f64::min)),
+            max: finite(t.iter().copied().fold(0.0, f64::max)),
         },
         agreement,
         variants,

@@ -91,9 +91,9 @@ pub struct Tolerance {
     /// What set u: the checked column's, the inputs' or float32 arithmetic.
     pub column_precision: String,
     pub input_precision: String,
-    /// The smallest and largest per-step tolerance.
-    pub min: f64,
-    pub max: f64,
+    /// The smallest and largest per-step tolerance (None when one overflowed f64).
+    pub min: Option<f64>,
+    pub max: Option<f64>,
 }
 
 /// The per-step rule: a fixed bound, or the data-derived formula with precision `unit`.

@@ -252,6 +252,13 @@ fn candidate(name: &'static str, description: &str, column: Vec<f64>) -> Candida
 
 /// The input-level faults (every row but the normalisations and the fit), as advantages.
 pub fn input_faults(batch: &Batch, c: &Claimed, at: &[(usize, usize)]) -> Vec<Candidate> {
+    let mut out = episode_faults(batch, c, at);
+    out.extend(stream_faults(batch, c, at));
+    out
+}
+
+/// Faults at one episode's end or in its bootstraps.
+fn episode_faults(batch: &Batch, c: &Claimed, at: &[(usize, usize)]) -> Vec<Candidate> {
     let rewards = |e: usize| batch.episodes[e].rewards.clone();
     let tail = |e: usize| batch.episodes[e].tail_value();
     let mut out = vec![candidate(
@@ -273,32 +280,6 @@ pub fn input_faults(batch: &Batch, c: &Claimed, at: &[(usize, usize)]) -> Vec<Ca
                 cut: last,
             }
         }),
-    ));
-    out.push(candidate(
-        "trace_across_episodes_file_order",
-        "the trace (or return) is not reset at episode ends: carried over rows in file order",
-        carried(batch, c, at, &streams(batch, at, true)),
-    ));
-    if super::environments(&batch.episodes) >= 2 {
-        out.push(candidate(
-            "trace_across_episodes_env_order",
-            "the trace (or return) is not reset at episode ends: carried over each \
-             environment's rows in file order",
-            carried(batch, c, at, &streams(batch, at, false)),
-        ));
-    }
-    let env = streams(batch, at, false);
-    out.push(candidate(
-        "end_flag_early",
-        "the end flag is read one step early: the recursion stops before each episode's last \
-         step, which runs on into the next episode",
-        shifted(batch, c, at, &env, true),
-    ));
-    out.push(candidate(
-        "end_flag_late",
-        "the end flag is read one step late: the recursion runs into the next episode's first \
-         step and stops after it",
-        shifted(batch, c, at, &env, false),
     ));
     out.push(candidate(
         "bootstrap_twice_at_truncation",
@@ -333,6 +314,38 @@ pub fn input_faults(batch: &Batch, c: &Claimed, at: &[(usize, usize)]) -> Vec<Ca
     out
 }
 
+/// Faults that read across episode boundaries along streams.
+fn stream_faults(batch: &Batch, c: &Claimed, at: &[(usize, usize)]) -> Vec<Candidate> {
+    let mut out = Vec::new();
+    out.push(candidate(
+        "trace_across_episodes_file_order",
+        "the trace (or return) is not reset at episode ends: carried over rows in file order",
+        carried(batch, c, at, &streams(batch, at, true)),
+    ));
+    if super::environments(&batch.episodes) >= 2 {
+        out.push(candidate(
+            "trace_across_episodes_env_order",
+            "the trace (or return) is not reset at episode ends: carried over each \
+             environment's rows in file order",
+            carried(batch, c, at, &streams(batch, at, false)),
+        ));
+    }
+    let env = streams(batch, at, false);
+    out.push(candidate(
+        "end_flag_early",
+        "the end flag is read one step early: the recursion stops before each episode's last \
+         step, which runs on into the next episode",
+        shifted(batch, c, at, &env, true),
+    ));
+    out.push(candidate(
+        "end_flag_late",
+        "the end flag is read one step late: the recursion runs into the next episode's first \
+         step and stops after it",
+        shifted(batch, c, at, &env, false),
+    ));
+    out
+}
+
 /// One stream per episode (the correct chains), for faults inside an episode.
 fn streams_per_episode(batch: &Batch, at: &[(usize, usize)]) -> Vec<Vec<usize>> {
     let _ = at;
@@ -345,7 +358,8 @@ fn streams_per_episode(batch: &Batch, at: &[(usize, usize)]) -> Vec<Vec<usize>> 
 }
 
 /// Judges a candidate column against the logged one.
-fn judge(batch: &Batch, at: &[(usize, usize)], col: &Column, cand: Candidate) -> VariantResult {
+fn judge(batch: &Batch, at: &[(usize, usize)], col: &Column, mut cand: Candidate) -> VariantResult {
+    cand.parameters.retain(|_, v| v.is_finite());
     let n = col.logged.len();
     let mut matching = 0;
     let mut affected = 0;
@@ -354,7 +368,8 @@ fn judge(batch: &Batch, at: &[(usize, usize)], col: &Column, cand: Candidate) ->
     let tol = cand.tol.as_deref().unwrap_or(&col.tol);
     for i in 0..n {
         let x = cand.column[i];
-        if !x.is_finite() {
+        // A step without a finite value or tolerance cannot be matched.
+        if !(x.is_finite() && tol[i].is_finite()) || col.unchecked(i) {
             continue;
         }
         if (col.logged[i] - x).abs() <= tol[i] {

@@ -40,9 +40,10 @@ pub struct Row {
     /// 0-based step within the episode.
     pub step: usize,
     pub logged: f64,
-    pub reference: f64,
-    pub difference: f64,
-    pub tolerance: f64,
+    /// None when the reference overflowed f64 (the step could not be checked).
+    pub reference: Option<f64>,
+    pub difference: Option<f64>,
+    pub tolerance: Option<f64>,
 }
 
 /// Differing steps of one episode.
@@ -60,7 +61,11 @@ pub struct Agreement {
     pub max_abs_error: Option<f64>,
     /// Over steps whose reference is not 0; None when every reference value is 0.
     pub max_rel_error: Option<f64>,
+    /// Steps beyond tolerance, the unchecked ones included.
     pub steps_differing: u64,
+    /// Steps whose reference or tolerance overflowed f64: they cannot be checked and count as
+    /// differing.
+    pub unchecked_steps: u64,
     pub share_differing: Option<f64>,
     pub episodes_differing: u64,
     /// The differing step with the lowest line.
@@ -150,14 +155,15 @@ fn row_text(r: &Row) -> String {
         r.episode,
         r.step,
         num(r.logged),
-        num(r.reference),
-        num(r.difference),
-        num(r.tolerance)
+        cell(r.reference),
+        cell(r.difference),
+        cell(r.tolerance)
     )
 }
 
 fn params_text(p: &BTreeMap<&'static str, f64>) -> String {
     p.iter()
+        .filter(|(_, v)| v.is_finite())
         .map(|(k, v)| format!("{k}={}", short(*v)))
         .collect::<Vec<_>>()
         .join(" ")
@@ -246,17 +252,26 @@ fn tolerance_text(c: &ColumnReport) -> String {
             num(u),
             t.column_precision,
             t.input_precision,
-            num(t.min),
-            num(t.max)
+            cell(t.min),
+            cell(t.max)
         ),
-        None => format!("--tolerance {} on every step", num(t.max)),
+        None => format!("--tolerance {} on every step", cell(t.max)),
     }
 }
 
 fn agreement_text(c: &ColumnReport) -> String {
     let a = &c.agreement;
+    let unchecked = if a.unchecked_steps > 0 {
+        format!(
+            "; {} steps could not be checked (their reference overflowed f64)",
+            a.unchecked_steps
+        )
+    } else {
+        String::new()
+    };
     format!(
-        "max abs error {}, max rel error {}; {} of {} steps ({}) beyond tolerance, in {} episodes",
+        "max abs error {}, max rel error {}; {} of {} steps ({}) beyond tolerance, in {} \
+         episodes{unchecked}",
         cell(a.max_abs_error),
         cell(a.max_rel_error),
         a.steps_differing,

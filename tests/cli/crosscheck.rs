@@ -574,3 +574,61 @@ pub fn exact_gae_log() -> (Dir, String) {
     let path = dir.write("log.csv", text.as_bytes());
     (dir, path)
 }
+
+#[test]
+fn tolerance_flag_overrides_the_data() {
+    // A float32-rounded column agrees by the data's tolerance but not within 1e-12.
+    let l = log();
+    let rounded: Vec<f64> = l
+        .correct(GAMMA, LAMBDA)
+        .iter()
+        .map(|a| *a as f32 as f64)
+        .collect();
+    let (code, rep) = check(
+        "tolflag",
+        &l.csv(&rounded),
+        &["--advantage", "adv", "--tolerance", "1e-12"],
+    );
+    assert_eq!(code, 1);
+    let t = &rep["columns"][0]["tolerance"];
+    assert_eq!(t["source"], "flag");
+    assert_eq!(t["max"], 1e-12);
+    let (code, _, err) = run(&[
+        "crosscheck",
+        "x.csv",
+        "--advantage",
+        "a",
+        "--tolerance",
+        "0",
+    ]);
+    assert_eq!(code, 2);
+    assert!(err.contains("--tolerance"), "{err}");
+}
+
+#[test]
+fn overflowing_reference_is_unchecked_not_agreeing() {
+    // Rewards near f64::MAX: the return sums (and the tolerances) overflow; those steps cannot
+    // be checked, so the column does not pass, and the JSON holds null for every figure that
+    // would be infinite.
+    let csv = "episode,step,reward,terminated,truncated,adv\n\
+        a,0,1.5e308,0,0,1\na,1,1.5e308,1,0,1.5e308\n";
+    let (code, rep) = check(
+        "overflow",
+        csv,
+        &[
+            "--advantage",
+            "adv",
+            "--estimator",
+            "rtg_discounted",
+            "--gamma",
+            "1",
+        ],
+    );
+    assert_eq!(code, 1);
+    let a = &rep["columns"][0]["agreement"];
+    assert_eq!(a["unchecked_steps"], 2, "{rep:#}");
+    assert_eq!(a["first_difference"]["reference"], Value::Null);
+    assert_eq!(a["max_abs_error"], Value::Null);
+    assert_eq!(a["max_rel_error"], Value::Null);
+    assert_eq!(rep["columns"][0]["status"], "unexplained");
+}
