@@ -13,7 +13,8 @@
 //! and lambda in [0, 1] by 0.1, then [`LEVELS`] refinements, each a grid of 11 x 11 points
 //! spanning one step either side of the best point with a fifth of the step. The final
 //! resolution is 0.01 / 5^9 = 5.1e-9 in gamma and 0.1 / 5^9 = 5.1e-8 in lambda. For n-step and
-//! return claims only gamma is fitted.
+//! return claims only gamma is fitted; an n-step claim's window is also fitted on its own
+//! (every n from 1 to the longest episode, at most [`MAX_WINDOW`]).
 
 use super::variants::Candidate;
 use super::{Batch, CheckConfig, Claim, Claimed, Column, Kind, reference};
@@ -25,6 +26,8 @@ pub const MIN_RUN: usize = 4;
 pub const FIT_STEPS: usize = 2000;
 /// Refinement levels of the gamma/lambda grid.
 pub const LEVELS: usize = 9;
+/// The longest n-step window tried.
+pub const MAX_WINDOW: usize = 4096;
 /// Moves of a refinement grid whose best point lies on its edge, at most.
 pub const MAX_MOVES: usize = 200;
 
@@ -252,4 +255,26 @@ pub fn gamma_lambda(
         params.insert("lambda", best.1);
     }
     (fitted, params)
+}
+
+/// For an n-step claim, the window n (other than the claimed one) that fits the column best.
+pub fn window(batch: &Batch, cfg: &CheckConfig, col: &Column) -> Option<(Claimed, usize)> {
+    let Claim::NStep(claimed) = cfg.claim.claim else {
+        return None;
+    };
+    let longest = batch.episodes.iter().map(|e| e.len()).max().unwrap_or(1);
+    let (mut episodes, mut steps) = (0, 0);
+    while episodes < batch.episodes.len() && steps < FIT_STEPS {
+        steps += batch.episodes[episodes].len();
+        episodes += 1;
+    }
+    let with = |n: usize| Claimed {
+        claim: Claim::NStep(n),
+        gamma: cfg.claim.gamma,
+    };
+    (1..=longest.min(MAX_WINDOW))
+        .filter(|&n| n != claimed)
+        .map(|n| (n, objective(batch, col, &with(n), episodes)))
+        .min_by(|a, b| a.1.total_cmp(&b.1).then(a.0.cmp(&b.0)))
+        .map(|(n, _)| (with(n), n))
 }

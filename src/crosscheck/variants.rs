@@ -31,6 +31,7 @@
 //! | next_episode_first_value | V_T = V_0 of the environment's next episode at truncation |
 //! | normalised_batch | y = a A + b over the whole log (least squares; a > 0) |
 //! | normalised_minibatch | y = a_k A + b_k on consecutive runs of rows in file order |
+//! | other_window | an n-step claim at a fitted window n, fit.rs |
 //! | other_gamma_lambda | the claim at a fitted gamma (and lambda), fit.rs |
 
 use super::{Batch, CheckConfig, Claim, Claimed, Column, Kind, fit, reference};
@@ -421,20 +422,33 @@ pub fn evaluate(
         out.push(judge(batch, at, col, super::fit::normalised_batch(col)));
         out.push(judge(batch, at, col, normalised_minibatch(batch, at, col)));
     }
+    if let Some((claim, n)) = fit::window(batch, cfg, col) {
+        let mut cand = candidate(
+            "other_window",
+            "the n-step computation with another window n, fitted to the column",
+            as_kind(batch, col.kind, recompute(batch, &claim)),
+        );
+        cand.parameters.insert("n", n as f64);
+        out.push(judge(batch, at, col, cand));
+    }
     let (claim, params) = fit::gamma_lambda(batch, cfg, col);
-    let adv = batch.flat(|_, ep, v| {
-        let mut out = Vec::new();
-        reference::advantages(&claim, &ep.rewards, v, ep.tail_value(), &mut out);
-        out
-    });
     let mut cand = candidate(
         "other_gamma_lambda",
         "the claimed computation with another gamma (and lambda), fitted to the column",
-        as_kind(batch, col.kind, adv),
+        as_kind(batch, col.kind, recompute(batch, &claim)),
     );
     cand.parameters = params;
     out.push(judge(batch, at, col, cand));
     out
+}
+
+/// The reference advantages under another claim.
+fn recompute(batch: &Batch, claim: &Claimed) -> Vec<f64> {
+    batch.flat(|_, ep, v| {
+        let mut out = Vec::new();
+        reference::advantages(claim, &ep.rewards, v, ep.tail_value(), &mut out);
+        out
+    })
 }
 
 /// Per-minibatch normalisation: runs of rows in file order, each an affine image of the

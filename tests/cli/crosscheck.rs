@@ -632,3 +632,39 @@ fn overflowing_reference_is_unchecked_not_agreeing() {
     assert_eq!(a["max_rel_error"], Value::Null);
     assert_eq!(rep["columns"][0]["status"], "unexplained");
 }
+
+// n-step with another window than claimed: written by a direct sum (sum_{k<m} gamma^k r_{t+k}
+// + gamma^m V_{t+m} - V_t, m = min(3, T - t), V_T the episode's end value), claimed nstep:5.
+#[test]
+fn another_nstep_window_is_named() {
+    let l = log();
+    let nv = l.next_values();
+    let mut a = vec![0.0; l.n()];
+    for i in 0..l.n() {
+        let (mut sum, mut disc) = (0.0, 1.0);
+        // The window's rows i..i+m-1 stop at 3 rows or at the episode's last row.
+        let mut end = i;
+        while end - i < 3 {
+            sum += disc * l.r[end];
+            disc *= GAMMA;
+            if l.last[end] {
+                break;
+            }
+            end += 1;
+        }
+        // Ended on the episode's last row: its end value; else V of the row after the window.
+        let boot = if end - i < 3 { nv[end] } else { l.v[end] };
+        a[i] = sum + disc * boot - l.v[i];
+    }
+    let (code, rep) = check(
+        "window",
+        &l.csv(&a),
+        &["--advantage", "adv", "--estimator", "nstep:5"],
+    );
+    assert_eq!(code, 1);
+    assert_eq!(
+        explained_by(&rep, 0),
+        vec!["other_window".to_string()],
+        "{rep:#}"
+    );
+}
