@@ -19,14 +19,16 @@ pub struct Episode {
     /// The id's bytes exactly as in the log: what identifies, orders and folds the episode
     /// (two ids may decode to the same `id`, e.g. different invalid UTF-8 bytes).
     pub key: Vec<u8>,
-    /// The environment value of a vector-environment log; None when the log has no environment
-    /// column.
-    pub env: Option<String>,
     /// Line of its first row in the log, for messages.
     pub first_line: u64,
     /// Line of each step's row in the log, for messages about one step (empty for episodes
     /// built in memory).
     pub lines: Vec<u64>,
+    /// Logged per-step columns asked for by name (`ColumnSpec::logged`), row-major
+    /// (`T x logged_names.len()`): a training stack's own advantages or value targets.
+    pub logged: Vec<f64>,
+    /// The headers of the logged columns, in the order of `logged`'s rows.
+    pub logged_names: std::sync::Arc<[String]>,
     pub rewards: Vec<f64>,
     pub values: Option<Vec<f64>>,
     pub q: Option<Vec<f64>>,
@@ -37,12 +39,9 @@ pub struct Episode {
     pub obs: Vec<f64>,
     pub act_dim: usize,
     pub act: Vec<f64>,
-    /// Logged per-step columns asked for by name (`ColumnSpec::logged`), row-major
-    /// (`T x logged_names.len()`): a training stack's own advantages or value targets.
-    pub logged: Vec<f64>,
-    /// The headers of the logged columns, in the order of `logged`'s rows.
-    pub logged_names: std::sync::Arc<[String]>,
     pub end: End,
+    /// The environment of a vector-environment layout (`--env-col`), None otherwise.
+    pub env: Option<String>,
 }
 
 impl Episode {
@@ -59,9 +58,10 @@ impl Episode {
         Episode {
             id: String::from_utf8_lossy(raw).into_owned(),
             key: raw.to_vec(),
-            env: None,
             first_line,
             lines: Vec::new(),
+            logged: Vec::new(),
+            logged_names: layout.logged.clone(),
             rewards: Vec::new(),
             values: layout.value.then(Vec::new),
             q: layout.q.then(Vec::new),
@@ -72,9 +72,8 @@ impl Episode {
             obs: Vec::new(),
             act_dim: layout.act_dim,
             act: Vec::new(),
-            logged: Vec::new(),
-            logged_names: layout.logged.clone(),
             end: End::Terminated,
+            env: None,
         }
     }
 

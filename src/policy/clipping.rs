@@ -171,9 +171,10 @@ mod tests {
         Episode {
             id: "e".into(),
             key: b"e".to_vec(),
-            env: None,
             first_line: 2,
             lines: Vec::new(),
+            logged: Vec::new(),
+            logged_names: Vec::new().into(),
             rewards: vec![0.0; acts.len()],
             values: None,
             q: None,
@@ -184,9 +185,8 @@ mod tests {
             obs: Vec::new(),
             act_dim: 1,
             act: acts.to_vec(),
-            logged: Vec::new(),
-            logged_names: Vec::new().into(),
             end: End::Terminated,
+            env: None,
         }
     }
 
