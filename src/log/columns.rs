@@ -75,11 +75,11 @@ pub struct ColumnSpec {
     /// Roles the user named explicitly; a missing explicit header is an error even if optional.
     explicit: [bool; 9],
     pub score_prefix: String,
-    pub obs_prefix: String,
-    pub act_prefix: String,
     /// Headers of per-step columns carried into each episode as they are (`Episode::logged`):
     /// a training stack's own advantages or value targets, to check or to audit.
     pub logged: Vec<String>,
+    pub obs_prefix: String,
+    pub act_prefix: String,
 }
 
 impl Default for ColumnSpec {
@@ -88,9 +88,9 @@ impl Default for ColumnSpec {
             headers: Role::ALL.map(|r| r.key().to_string()),
             explicit: [false; 9],
             score_prefix: "score_".into(),
+            logged: Vec::new(),
             obs_prefix: "obs_".into(),
             act_prefix: "act_".into(),
-            logged: Vec::new(),
         }
     }
 }
@@ -127,10 +127,10 @@ pub struct Schema {
     pub headers: Vec<String>,
     roles: [Option<usize>; 9],
     pub scores: Vec<usize>,
-    pub obs: Vec<usize>,
-    pub act: Vec<usize>,
     /// Columns of `ColumnSpec::logged`, in that order.
     pub logged: Vec<usize>,
+    pub obs: Vec<usize>,
+    pub act: Vec<usize>,
 }
 
 /// One line of the "which header got which role" table.
