@@ -52,18 +52,12 @@ impl Precision {
     }
 }
 
-/// The shortest number of significant digits that reads `x` back exactly.
+/// The shortest number of significant digits that reads `x` back exactly: the mantissa of
+/// Rust's `{:e}` formatting, which prints the shortest text that round-trips.
 fn digits(x: f64) -> u32 {
-    if x == 0.0 {
-        return 1;
-    }
-    (1..=17)
-        .find(|&d| {
-            format!("{:.*e}", d as usize - 1, x)
-                .parse::<f64>()
-                .is_ok_and(|y| y == x)
-        })
-        .unwrap_or(17)
+    let text = format!("{x:e}");
+    let mantissa = text.split('e').next().unwrap_or("");
+    mantissa.bytes().filter(u8::is_ascii_digit).count().max(1) as u32
 }
 
 /// The precision of a column of values.
