@@ -758,6 +758,12 @@ impl CrosscheckArgs {
             (_, Some(_)) => return Err(Error::usage("--lambda applies to a gae estimator only")),
             (e, None) => e.to_string(),
         };
+        if !(0.0..=1.0).contains(&self.gamma) {
+            return Err(Error::usage(format!(
+                "--gamma {} must lie in [0, 1]",
+                self.gamma
+            )));
+        }
         let claim = crate::crosscheck::Claimed::parse(&name, self.gamma)
             .map_err(|e| Error::usage(format!("--estimator {e}")))?;
         if let Some(t) = self.tolerance

@@ -550,6 +550,12 @@ fn bad_input_exits_2_naming_the_column() {
     let (code, _, err) = run(&["crosscheck", &p]);
     assert_eq!(code, 2);
     assert!(err.contains("nothing to check"), "{err}");
+    let (code, _, err) = run(&["crosscheck", &p, "--advantage", "adv", "--gamma", "1.5"]);
+    assert_eq!(code, 2);
+    assert!(err.contains("--gamma 1.5 must lie in [0, 1]"), "{err}");
+    let (code, _, err) = run(&["crosscheck", &p, "--advantage", "adv", "--estimator", "td"]);
+    assert_eq!(code, 2);
+    assert!(err.contains("gae:L, nstep:N or rtg_discounted"), "{err}");
     let p = dir.write("nov.csv", b"episode,step,reward,adv\na,0,1,1\n");
     let (code, _, err) = run(&["crosscheck", &p, "--advantage", "adv"]);
     assert_eq!(code, 2);
