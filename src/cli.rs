@@ -48,6 +48,9 @@ pub enum Command {
     Sweep(SweepArgs),
     /// Audit a log and check rules on the result: exit 1 when one fails (for CI)
     Gate(GateArgs),
+    /// Check a logged advantage or value-target column against the reference computation;
+    /// name the known fault that explains a difference (exit 1 when they differ)
+    Crosscheck(CrosscheckArgs),
 }
 
 /// How to read the log (shared by every command).
@@ -403,9 +406,19 @@ impl LogArgs {
     }
 
     pub fn open(&self) -> Result<LogReader> {
+        self.open_with(&self.read_options()?)
+    }
+
+    /// Opens the log and its further files (`MORE_LOGS`) as one log.
+    pub fn open_with(&self, options: &ReadOptions) -> Result<LogReader> {
+        LogReader::open_many(&self.paths(), options)
+    }
+
+    /// Every input log path: the first and the further ones.
+    pub fn paths(&self) -> Vec<String> {
         let mut paths = vec![self.log.clone()];
         paths.extend(self.more_logs.iter().cloned());
-        LogReader::open_many(&paths, &self.read_options()?)
+        paths
     }
 }
 
@@ -609,6 +622,7 @@ pub fn run(cli: Cli) -> Result<u8> {
         Command::Audit(a) => return run_audit(a),
         Command::Sweep(s) => return run_sweep(s),
         Command::Gate(g) => return run_gate(g),
+        Command::Crosscheck(c) => return run_crosscheck(c),
     }
     Ok(exit::OK)
 }
@@ -617,16 +631,32 @@ impl AuditOptions {
     /// The input files of an audit that no output may replace (the log, the policy).
     fn inputs<'a>(&'a self, log: &'a LogArgs) -> Vec<&'a str> {
         let mut inputs = vec![log.log.as_str()];
+        inputs.extend(log.more_logs.iter().map(String::as_str));
         inputs.extend(self.policy.as_deref());
         inputs
     }
+}
+
+/// Opens the log for an audit, carrying the columns of `column:HEADER` estimators.
+fn open_for(log: &LogArgs, cfg: &AuditConfig) -> Result<LogReader> {
+    let mut options = log.read_options()?;
+    let mut logged: Vec<String> = Vec::new();
+    for e in cfg.estimators.iter().flatten().chain([&cfg.reference]) {
+        if let Estimator::Column(h) = e
+            && !logged.iter().any(|l| l == h)
+        {
+            logged.push(h.to_string());
+        }
+    }
+    options.columns.logged = logged;
+    log.open_with(&options)
 }
 
 fn run_audit(a: AuditArgs) -> Result<u8> {
     let mut cfg = a.audit.config(&a.log)?;
     let slots = a.output.check(&a.audit.inputs(&a.log))?;
     cfg.critic = a.audit.fit_critic(&a.log, cfg.gamma)?;
-    let report = audit::run(a.log.open()?, &cfg)?;
+    let report = audit::run(open_for(&a.log, &cfg)?, &cfg)?;
     slots.write(report::render(&report, a.format()), || {
         report::svg::audit_bars(&report)
     })?;
@@ -665,7 +695,11 @@ fn run_gate(g: GateArgs) -> Result<u8> {
     let baseline = g.baseline.as_deref().map(Baseline::load).transpose()?;
     gate::include_named(&mut cfg, &rules);
     cfg.critic = g.audit.fit_critic(&g.log, cfg.gamma)?;
-    let result = gate::run(audit::run(g.log.open()?, &cfg)?, &rules, baseline.as_ref())?;
+    let result = gate::run(
+        audit::run(open_for(&g.log, &cfg)?, &cfg)?,
+        &rules,
+        baseline.as_ref(),
+    )?;
     let text = match g.format {
         GateFormat::Text => report::gate::render_text(&result),
         GateFormat::Markdown => report::gate::render_markdown(&result),
@@ -677,6 +711,119 @@ fn run_gate(g: GateArgs) -> Result<u8> {
     }
     outputs.write(texts)?;
     Ok(if result.passed {
+        exit::OK
+    } else {
+        exit::CHECK_FAILED
+    })
+}
+
+#[derive(Debug, Clone, Copy, ValueEnum)]
+pub enum CrosscheckFormat {
+    Table,
+    Json,
+    Markdown,
+}
+
+#[derive(Debug, Args)]
+#[command(
+    after_help = "Example: gradaudit crosscheck rollouts.csv --advantage adv \
+    --estimator gae:0.95 --gamma 0.99\n\
+    Exit codes: 0 every checked column agrees, 1 a column differs, 2 bad usage or bad input."
+)]
+pub struct CrosscheckArgs {
+    #[command(flatten)]
+    pub log: LogArgs,
+
+    /// Header of the logged per-step advantage column to check
+    #[arg(long, value_name = "HEADER")]
+    pub advantage: Option<String>,
+
+    /// Header of the logged per-step value-target (return) column to check: advantage + V_t
+    #[arg(long = "returns", value_name = "HEADER")]
+    pub returns: Option<String>,
+
+    /// The computation the column claims to follow: gae:LAMBDA (or gae with --lambda),
+    /// nstep:N, or rtg_discounted (the discounted return, bootstrapped at truncation)
+    #[arg(long, default_value = "gae:0.95", value_name = "NAME")]
+    pub estimator: String,
+
+    /// Discount factor gamma of the claimed computation, in [0, 1]
+    #[arg(long, default_value_t = 0.99)]
+    pub gamma: f64,
+
+    /// Lambda of a GAE claim (overrides gae:L)
+    #[arg(long, value_name = "L")]
+    pub lambda: Option<f64>,
+
+    /// One absolute tolerance for every step, instead of the one chosen from the column's
+    /// precision and the magnitudes involved (see the README)
+    #[arg(long, value_name = "ABS")]
+    pub tolerance: Option<f64>,
+
+    /// Output format
+    #[arg(long, value_enum, default_value_t = CrosscheckFormat::Table)]
+    pub format: CrosscheckFormat,
+
+    /// Write the report here (atomically) instead of stdout
+    #[arg(long, value_name = "FILE", default_value = "-")]
+    pub out: String,
+}
+
+impl CrosscheckArgs {
+    /// The check's config: the claim, the columns and the tolerance.
+    pub fn config(&self) -> Result<crate::crosscheck::CheckConfig> {
+        if self.advantage.is_none() && self.returns.is_none() {
+            return Err(Error::usage(
+                "nothing to check: give --advantage HEADER and/or --returns HEADER",
+            ));
+        }
+        let name = match (self.estimator.trim(), self.lambda) {
+            ("gae", Some(l)) => format!("gae:{l}"),
+            ("gae", None) => return Err(Error::usage("--estimator gae needs --lambda L")),
+            (e, Some(l)) if e.starts_with("gae:") => format!("gae:{l}"),
+            (_, Some(_)) => return Err(Error::usage("--lambda applies to a gae estimator only")),
+            (e, None) => e.to_string(),
+        };
+        if !(0.0..=1.0).contains(&self.gamma) {
+            return Err(Error::usage(format!(
+                "--gamma {} must lie in [0, 1]",
+                self.gamma
+            )));
+        }
+        let claim = crate::crosscheck::Claimed::parse(&name, self.gamma)
+            .map_err(|e| Error::usage(format!("--estimator {e}")))?;
+        if let Some(t) = self.tolerance
+            && !(t > 0.0 && t.is_finite())
+        {
+            return Err(Error::usage("--tolerance must be a positive number"));
+        }
+        Ok(crate::crosscheck::CheckConfig {
+            claim,
+            advantage: self.advantage.clone(),
+            ret: self.returns.clone(),
+            tolerance: self.tolerance,
+            budget: self.log.budget()?,
+        })
+    }
+}
+
+fn run_crosscheck(c: CrosscheckArgs) -> Result<u8> {
+    let cfg = c.config()?;
+    let paths = c.log.paths();
+    let inputs: Vec<&str> = paths.iter().map(String::as_str).collect();
+    let mut outputs = output::Outputs::new(&inputs);
+    let out = outputs.add("--out", &c.out)?;
+    output::test_pause("checked");
+    let mut options = c.log.read_options()?;
+    options.columns.logged = cfg.columns().into_iter().map(|(_, h)| h).collect();
+    let report = crate::crosscheck::run(c.log.open_with(&options)?, &cfg)?;
+    let text = match c.format {
+        CrosscheckFormat::Table => report::crosscheck::render_table(&report),
+        CrosscheckFormat::Json => report::crosscheck::render_json(&report),
+        CrosscheckFormat::Markdown => report::crosscheck::render_markdown(&report),
+    };
+    outputs.write(vec![(out, text)])?;
+    Ok(if report.agree {
         exit::OK
     } else {
         exit::CHECK_FAILED

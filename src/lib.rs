@@ -14,6 +14,7 @@ pub mod audit;
 pub mod cli;
 pub mod contrib;
 pub mod critic;
+pub mod crosscheck;
 pub mod estimator;
 pub mod fuzzing;
 pub mod gate;

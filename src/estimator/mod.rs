@@ -32,6 +32,10 @@ pub enum Estimator {
     NStep(usize),
     /// GAE(lambda).
     Gae(f64),
+    /// Psi_t = a logged per-step column (a training stack's own advantages), by header. The
+    /// header is interned for the life of the run (`Box::leak`, a few bytes per name parsed) so
+    /// that estimators stay `Copy`.
+    Column(&'static str),
 }
 
 /// A log column an estimator cannot do without.
@@ -78,6 +82,14 @@ impl Estimator {
             }
             return Ok(Estimator::Gae(lambda));
         }
+        if let Some(header) = text.strip_prefix("column:") {
+            if header.is_empty() {
+                return Err(format!("'{text}': give the header of the logged column"));
+            }
+            return Ok(Estimator::Column(Box::leak(
+                header.to_string().into_boxed_str(),
+            )));
+        }
         if let Some(arg) = text.strip_prefix("nstep:") {
             let n: usize = arg
                 .parse()
@@ -89,7 +101,7 @@ impl Estimator {
         }
         Err(format!(
             "unknown estimator '{text}'; known: total, rtg, rtg_discounted, mean_baseline, \
-             whitened, value_baseline, q, advantage_q, td, nstep:N, gae:LAMBDA"
+             whitened, value_baseline, q, advantage_q, td, nstep:N, gae:LAMBDA, column:HEADER"
         ))
     }
 
@@ -132,7 +144,8 @@ impl Estimator {
             | Estimator::Rtg
             | Estimator::RtgDiscounted
             | Estimator::MeanBaseline
-            | Estimator::Whitened => &[],
+            | Estimator::Whitened
+            | Estimator::Column(_) => &[],
             Estimator::Q => &[Need::Q],
             Estimator::AdvantageQ => &[Need::Q, Need::Value],
             Estimator::ValueBaseline | Estimator::Td | Estimator::NStep(_) | Estimator::Gae(_) => {
@@ -180,6 +193,15 @@ impl Estimator {
                 debug_assert_eq!(deltas.len(), t_len, "TD residuals computed by the caller");
                 scan::gae(deltas, gamma, lambda, out);
             }
+            Estimator::Column(header) => {
+                let k = ep
+                    .logged_names
+                    .iter()
+                    .position(|n| n == header)
+                    .expect("the reader carries every column estimator's column");
+                let w = ep.logged_names.len();
+                out.extend((0..t_len).map(|t| ep.logged[t * w + k]));
+            }
             Estimator::MeanBaseline | Estimator::Whitened => {
                 panic!("{self} has no per-episode return proxy")
             }
@@ -202,6 +224,7 @@ impl fmt::Display for Estimator {
             Estimator::NStep(n) => write!(f, "nstep:{n}"),
             // f64's Display prints the shortest text that reads back exactly: 0.95, 1, 0.
             Estimator::Gae(l) => write!(f, "gae:{l}"),
+            Estimator::Column(h) => write!(f, "column:{h}"),
         }
     }
 }
@@ -218,6 +241,10 @@ mod tests {
         assert_eq!(Estimator::Gae(0.95).to_string(), "gae:0.95");
         assert_eq!(Estimator::Gae(1.0).to_string(), "gae:1");
         assert_eq!(Estimator::NStep(5).to_string(), "nstep:5");
+        let c = Estimator::parse("column:adv").unwrap();
+        assert_eq!(c, Estimator::Column("adv"));
+        assert_eq!(c.to_string(), "column:adv");
+        assert!(Estimator::parse("column:").is_err());
     }
 
     #[test]

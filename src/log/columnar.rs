@@ -244,6 +244,9 @@ impl Plan {
                 vectors.push((check(c, num(types[c]), "numbers")?, None));
             }
         }
+        for &c in &s.logged {
+            vectors.push((check(c, num(types[c]), "numbers")?, None));
+        }
         Ok(Plan {
             id: check(id, id_ok, "integers or strings (an id)")?,
             reward: role(Role::Reward, &num, "numbers")?.expect("a required role"),

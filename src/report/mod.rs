@@ -8,6 +8,7 @@
 //! mse, ess), then the signal (for snr, episodes_for_snr). Otherwise they are None with a note.
 
 pub mod columns;
+pub mod crosscheck;
 pub mod csv;
 pub mod gate;
 pub mod inspect;

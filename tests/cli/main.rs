@@ -5,6 +5,8 @@ mod util;
 mod audit;
 mod bad_input;
 mod corpus;
+mod crosscheck;
+mod crosscheck_demo;
 mod fuzz_inputs;
 mod gate;
 mod hardening_counts;
