@@ -198,6 +198,19 @@ pub struct AuditOptions {
     /// safetensors weights) for the value-based estimators, instead of a value column
     #[arg(long, value_name = "FILE")]
     pub value_net: Option<String>,
+
+    /// Bootstrap scheme: `multinomial` draws N episodes with replacement (holds one summary row
+    /// per episode); `poisson` weights each episode Poisson(1) per replicate, keyed by its id,
+    /// and sums as episodes end (memory independent of the episode count; `shard` files of it
+    /// merge exactly)
+    #[arg(long, value_enum, default_value_t = ResamplingArg::Multinomial)]
+    pub resampling: ResamplingArg,
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum ResamplingArg {
+    Multinomial,
+    Poisson,
 }
 
 #[derive(Debug, Clone, Copy, ValueEnum)]
@@ -319,6 +332,11 @@ impl SweepArgs {
             ));
         }
         let audit = self.audit.config(&self.log)?;
+        if audit.resampling != crate::audit::Resampling::Multinomial {
+            return Err(Error::usage(
+                "sweep resamples with the multinomial bootstrap only; drop --resampling",
+            ));
+        }
         let over = match self.over {
             SweepOver::Lambda => Over::Lambda,
             SweepOver::Nstep => Over::Nstep,
@@ -529,6 +547,10 @@ impl AuditOptions {
                 .map_err(|e| Error::usage(format!("--project {e}")))?,
             value_net: self.value_net.clone(),
             budget: log.budget()?,
+            resampling: match self.resampling {
+                ResamplingArg::Multinomial => crate::audit::Resampling::Multinomial,
+                ResamplingArg::Poisson => crate::audit::Resampling::Poisson,
+            },
             ..AuditConfig::default()
         };
         cfg.validate()?;

@@ -1,0 +1,2 @@
+//! Checks of the Poisson resampler.
+use super::*;
