@@ -174,6 +174,30 @@ impl PoissonSums {
         }
     }
 
+    /// Sums read back from a shard file (hi, lo: rows x width; weight: rows). None when the
+    /// shapes do not fit `resamples` and `splits`.
+    pub fn from_parts(
+        seed: u64,
+        (resamples, splits): (usize, usize),
+        hi: Array2<f64>,
+        lo: Array2<f64>,
+        weight: Vec<f64>,
+    ) -> Option<PoissonSums> {
+        let rows = 1 + resamples + 2 * splits;
+        let width = hi.ncols();
+        (hi.nrows() == rows && lo.dim() == hi.dim() && weight.len() == rows).then(|| PoissonSums {
+            seed,
+            resamples,
+            splits,
+            width,
+            hi,
+            lo,
+            weight,
+            pending: Vec::new(),
+            pending_hashes: Vec::new(),
+        })
+    }
+
     /// Rows of the sums.
     pub fn rows(&self) -> usize {
         self.weight.len()

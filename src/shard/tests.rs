@@ -1,0 +1,2 @@
+//! Round trips and merges of shard files.
+use super::*;
