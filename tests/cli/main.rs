@@ -15,4 +15,5 @@ mod inspect;
 mod network;
 mod policy;
 mod projection;
+mod shards;
 mod sweep;
