@@ -223,3 +223,47 @@ fn a_file_that_is_not_a_shard_is_refused_by_name() {
     assert_eq!(code, 2);
     assert!(err.contains("lacks `format`"), "{err}");
 }
+
+// The Dask recipe (scripts/dask_shards.py: a LocalCluster maps `gradaudit shard` over the
+// files, then one `gradaudit merge`) gives the single-process Poisson report, to the same
+// 1e-12 as the merge itself. Needs python3 with dask and distributed (`bash scripts/test`
+// installs them); without python3 the test says so and passes.
+#[test]
+fn dask_recipe_gives_the_single_process_report() {
+    let python = std::process::Command::new("python3")
+        .arg("--version")
+        .output();
+    if python.is_err() {
+        eprintln!("SKIPPED dask_recipe_gives_the_single_process_report: python3 is not installed");
+        return;
+    }
+    let dir = Dir::new("shards-dask");
+    let parts = split(&dir, 3, |i| i / 50);
+    let out = dir.path("report.json").to_string_lossy().into_owned();
+    let script = format!("{}/scripts/dask_shards.py", env!("CARGO_MANIFEST_DIR"));
+    let shard_dir = dir.path("shards").to_string_lossy().into_owned();
+    let done = std::process::Command::new("python3")
+        .args([&script, "--gradaudit", env!("CARGO_BIN_EXE_gradaudit")])
+        .args([
+            "--shards-dir",
+            &shard_dir,
+            "--out",
+            &out,
+            "--format",
+            "json",
+        ])
+        .args(["--shard-args", &FAST.join(" "), "--workers", "2"])
+        .args(&parts)
+        .output()
+        .expect("python3 runs");
+    let err = String::from_utf8_lossy(&done.stderr);
+    assert!(
+        done.status.success(),
+        "the Dask recipe failed (dask and distributed missing? `bash scripts/test` installs \
+         them): {err}"
+    );
+    assert!(err.contains("3 shards on 2 workers"), "{err}");
+    let merged: Value = serde_json::from_str(&std::fs::read_to_string(&out).unwrap()).unwrap();
+    let worst = max_rel_diff(&merged, &single_json(), "");
+    assert!(worst <= 1e-12, "{worst}");
+}
