@@ -107,3 +107,6 @@ pub fn finish(part: &mut Partial, layout: &Layout, cfg: &AuditConfig) -> Result<
         st,
     ))
 }
+
+#[cfg(test)]
+mod tests;
