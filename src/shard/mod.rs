@@ -245,11 +245,23 @@ fn json<T: Serialize>(v: &T) -> String {
     serde_json::to_string(v).expect("plain data serialises")
 }
 
-/// Reads a shard file; every malformed part is an error naming the file and the part.
-pub fn decode(path: &str, bytes: &[u8]) -> Result<Shard> {
-    use safetensors::{Dtype, SafeTensors};
-    let bad = |what: String| Error::usage(format!("{path}: not a usable {FORMAT} file: {what}"));
-    let (_, header) = SafeTensors::read_metadata(bytes)
+/// A shard file's metadata strings, parsed.
+struct Header {
+    settings: ShardSettings,
+    input: ShardInput,
+    warnings: Vec<WireWarning>,
+    critic_steps: u64,
+}
+
+/// The error for a malformed part of the shard file `path`.
+fn bad(path: &str, what: String) -> Error {
+    Error::usage(format!("{path}: not a usable {FORMAT} file: {what}"))
+}
+
+/// Reads and checks the metadata of a shard file.
+fn read_header(path: &str, bytes: &[u8]) -> Result<Header> {
+    let bad = |what: String| bad(path, what);
+    let (_, header) = safetensors::SafeTensors::read_metadata(bytes)
         .map_err(|e| bad(format!("not a safetensors container ({e})")))?;
     let meta = header.metadata().clone().unwrap_or_default();
     let field = |k: &str| {
@@ -267,15 +279,28 @@ pub fn decode(path: &str, bytes: &[u8]) -> Result<Shard> {
     let parse = |k: &str| -> Result<serde_json::Value> {
         serde_json::from_str(&field(k)?).map_err(|e| bad(format!("`{k}` is not JSON ({e})")))
     };
-    let settings: ShardSettings =
-        serde_json::from_value(parse("settings")?).map_err(|e| bad(format!("`settings`: {e}")))?;
-    let input: ShardInput =
-        serde_json::from_value(parse("input")?).map_err(|e| bad(format!("`input`: {e}")))?;
-    let wire: Vec<WireWarning> =
-        serde_json::from_value(parse("warnings")?).map_err(|e| bad(format!("`warnings`: {e}")))?;
-    let steps: u64 = field("critic_steps")?
-        .parse()
-        .map_err(|_| bad("`critic_steps` is not a count".into()))?;
+    Ok(Header {
+        settings: serde_json::from_value(parse("settings")?)
+            .map_err(|e| bad(format!("`settings`: {e}")))?,
+        input: serde_json::from_value(parse("input")?).map_err(|e| bad(format!("`input`: {e}")))?,
+        warnings: serde_json::from_value(parse("warnings")?)
+            .map_err(|e| bad(format!("`warnings`: {e}")))?,
+        critic_steps: field("critic_steps")?
+            .parse()
+            .map_err(|_| bad("`critic_steps` is not a count".into()))?,
+    })
+}
+
+/// Reads a shard file; every malformed part is an error naming the file and the part.
+pub fn decode(path: &str, bytes: &[u8]) -> Result<Shard> {
+    use safetensors::{Dtype, SafeTensors};
+    let Header {
+        settings,
+        input,
+        warnings: wire,
+        critic_steps: steps,
+    } = read_header(path, bytes)?;
+    let bad = |what: String| bad(path, what);
     let st = SafeTensors::deserialize(bytes).map_err(|e| bad(e.to_string()))?;
     let tensor = |name: &str, dtype: Dtype| -> Result<(Vec<usize>, &[u8])> {
         let t = st
