@@ -342,8 +342,7 @@ pub fn decode(path: &str, bytes: &[u8]) -> Result<Shard> {
         weight,
     )
     .ok_or_else(|| bad("`weights` does not have one entry per row".into()))?;
-    let hashes =
-        read_hashes(tensor("id_hashes", Dtype::U64)?, input.episodes).map_err(|what| bad(what))?;
+    let hashes = read_hashes(tensor("id_hashes", Dtype::U64)?, input.episodes).map_err(&bad)?;
     let mut critic: [Vec<f64>; 4] = Default::default();
     for (c, name) in critic
         .iter_mut()
