@@ -267,3 +267,22 @@ fn dask_recipe_gives_the_single_process_report() {
     let worst = max_rel_diff(&merged, &single_json(), "");
     assert!(worst <= 1e-12, "{worst}");
 }
+
+// The Poisson audit is bit-identical for 1 and 2 threads: blocks of 64 episodes and chunks of
+// 128 replicate rows are fixed, whatever the thread count.
+#[test]
+fn poisson_audit_is_the_same_for_any_thread_count() {
+    let log = demo("docking_rover.csv");
+    let mut outs = Vec::new();
+    for threads in ["1", "2"] {
+        let out = crate::util::gradaudit()
+            .env("RAYON_NUM_THREADS", threads)
+            .args(["audit", &log, "--resampling", "poisson", "--format", "json"])
+            .args(FAST)
+            .output()
+            .expect("runs");
+        assert!(out.status.success());
+        outs.push(out.stdout);
+    }
+    assert_eq!(outs[0], outs[1]);
+}
