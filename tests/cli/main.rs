@@ -16,4 +16,5 @@ mod network;
 mod policy;
 mod projection;
 mod shards;
+mod stacks;
 mod sweep;
