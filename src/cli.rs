@@ -51,6 +51,39 @@ pub enum Command {
     /// Check a logged advantage or value-target column against the reference computation;
     /// name the known fault that explains a difference (exit 1 when they differ)
     Crosscheck(CrosscheckArgs),
+    /// Audit one part of a log into a shard file (Poisson resampling), for `merge`
+    Shard(ShardArgs),
+    /// Merge shard files into the audit report of all their episodes
+    Merge(MergeArgs),
+}
+
+#[derive(Debug, Args)]
+#[command(
+    after_help = "Every shard of one audit must be written with the same options; each episode \
+    must be in exactly one shard. The shards' Poisson weights are keyed by episode id, so the \
+    merged report equals `audit --resampling poisson` of the whole log.\n\
+    Example: gradaudit shard part-3.csv.gz --out part-3.shard; gradaudit merge part-*.shard"
+)]
+pub struct ShardArgs {
+    #[command(flatten)]
+    pub log: LogArgs,
+
+    #[command(flatten)]
+    pub audit: AuditOptions,
+
+    /// The shard file to write (safetensors, format gradaudit.shard/1; see the README)
+    #[arg(long, value_name = "FILE")]
+    pub out: String,
+}
+
+#[derive(Debug, Args)]
+pub struct MergeArgs {
+    /// Shard files written by `gradaudit shard`
+    #[arg(required = true, value_name = "SHARD")]
+    pub shards: Vec<String>,
+
+    #[command(flatten)]
+    pub output: ReportOutput,
 }
 
 /// How to read the log (shared by every command).
@@ -213,6 +246,19 @@ pub struct AuditOptions {
     /// safetensors weights) for the value-based estimators, instead of a value column
     #[arg(long, value_name = "FILE")]
     pub value_net: Option<String>,
+
+    /// Bootstrap scheme: `multinomial` draws N episodes with replacement (holds one summary row
+    /// per episode); `poisson` weights each episode Poisson(1) per replicate, keyed by its id,
+    /// and sums as episodes end (memory independent of the episode count; `shard` files of it
+    /// merge exactly)
+    #[arg(long, value_enum, default_value_t = ResamplingArg::Multinomial)]
+    pub resampling: ResamplingArg,
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum ResamplingArg {
+    Multinomial,
+    Poisson,
 }
 
 #[derive(Debug, Clone, Copy, ValueEnum)]
@@ -334,6 +380,11 @@ impl SweepArgs {
             ));
         }
         let audit = self.audit.config(&self.log)?;
+        if audit.resampling != crate::audit::Resampling::Multinomial {
+            return Err(Error::usage(
+                "sweep resamples with the multinomial bootstrap only; drop --resampling",
+            ));
+        }
         let over = match self.over {
             SweepOver::Lambda => Over::Lambda,
             SweepOver::Nstep => Over::Nstep,
@@ -557,6 +608,10 @@ impl AuditOptions {
                 .map_err(|e| Error::usage(format!("--project {e}")))?,
             value_net: self.value_net.clone(),
             budget: log.budget()?,
+            resampling: match self.resampling {
+                ResamplingArg::Multinomial => crate::audit::Resampling::Multinomial,
+                ResamplingArg::Poisson => crate::audit::Resampling::Poisson,
+            },
             ..AuditConfig::default()
         };
         cfg.validate()?;
@@ -623,6 +678,8 @@ pub fn run(cli: Cli) -> Result<u8> {
         Command::Sweep(s) => return run_sweep(s),
         Command::Gate(g) => return run_gate(g),
         Command::Crosscheck(c) => return run_crosscheck(c),
+        Command::Shard(s) => run_shard(s)?,
+        Command::Merge(m) => run_merge(m)?,
     }
     Ok(exit::OK)
 }
@@ -827,5 +884,40 @@ fn run_crosscheck(c: CrosscheckArgs) -> Result<u8> {
         exit::OK
     } else {
         exit::CHECK_FAILED
+    })
+}
+
+/// `gradaudit shard`: one part of a log into a shard file.
+fn run_shard(a: ShardArgs) -> Result<()> {
+    let mut cfg = a.audit.config(&a.log)?;
+    let mut outputs = output::Outputs::new(&a.audit.inputs(&a.log));
+    let out = outputs.add("--out", &a.out)?;
+    output::test_pause("checked");
+    cfg.critic = a.audit.fit_critic(&a.log, cfg.gamma)?;
+    let shard = crate::shard::write_shard(a.log.open()?, &cfg)?;
+    outputs.write_bytes(vec![(out, crate::shard::encode(&shard)?)])
+}
+
+/// `gradaudit merge`: shard files into one audit report.
+fn run_merge(m: MergeArgs) -> Result<()> {
+    let inputs: Vec<&str> = m.shards.iter().map(String::as_str).collect();
+    let slots = m.output.check(&inputs)?;
+    let mut shards = Vec::new();
+    for path in &m.shards {
+        let bytes = std::fs::read(path).map_err(|e| Error::io(path, e))?;
+        shards.push(crate::shard::MergeInput {
+            name: path.clone(),
+            shard: crate::shard::decode(path, &bytes)?,
+        });
+    }
+    let report = crate::shard::merged_report(shards)?;
+    let format = match m.output.format {
+        AuditFormat::Table => Format::Table,
+        AuditFormat::Json => Format::Json,
+        AuditFormat::Csv => Format::Csv,
+        AuditFormat::Markdown => Format::Markdown,
+    };
+    slots.write(report::render(&report, format), || {
+        report::svg::audit_bars(&report)
     })
 }

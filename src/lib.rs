@@ -24,6 +24,7 @@ pub mod output;
 pub mod policy;
 pub mod report;
 pub mod resample;
+pub mod shard;
 pub mod sketch;
 pub mod stats;
 pub mod sweep;

@@ -105,6 +105,8 @@ pub struct Settings {
     pub target_snr: f64,
     pub reference: String,
     pub splits: usize,
+    /// `multinomial` or `poisson` (the bootstrap scheme, `--resampling`).
+    pub resampling: String,
 }
 
 /// An estimator that was not audited, and why.

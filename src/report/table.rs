@@ -42,9 +42,14 @@ pub fn preamble(r: &AuditReport) -> Vec<String> {
             i.episodes, i.steps, i.terminated, i.truncated, i.score_dim, i.scores_from
         ),
         format!(
-            "  gamma {}, {} resamples, seed {}, reference {}, {}% intervals, target snr {}",
+            "  gamma {}, {} resamples{}, seed {}, reference {}, {}% intervals, target snr {}",
             s.gamma,
             s.resamples,
+            if s.resampling == "poisson" {
+                " (Poisson weights)"
+            } else {
+                ""
+            },
             s.seed,
             s.reference,
             s.confidence * 100.0,

@@ -17,5 +17,6 @@ mod inspect;
 mod network;
 mod policy;
 mod projection;
+mod shards;
 mod stacks;
 mod sweep;
