@@ -49,8 +49,7 @@ impl<'a> Group<'a> {
 /// The identity class of an estimator name, when it has one.
 fn class(name: &str, gamma: f64) -> Option<&'static str> {
     match Estimator::parse(name).ok()? {
-        Estimator::Td | Estimator::NStep(1) => Some("td"),
-        Estimator::Gae(l) if l == 0.0 => Some("td"),
+        Estimator::Td | Estimator::NStep(1) | Estimator::Gae(0.0) => Some("td"),
         Estimator::Rtg | Estimator::RtgDiscounted if gamma == 1.0 => Some("rtg"),
         _ => None,
     }

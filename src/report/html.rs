@@ -290,7 +290,7 @@ fn audit_sections(r: &AuditReport) -> String {
                 ("unsure", "bias^2 within resampling noise"),
                 ("var", "variance"),
             ],
-            "the number at a bar's end is its MSE.",
+            "The number at a bar's end is its MSE.",
         ),
         BARS_HOWTO,
     );

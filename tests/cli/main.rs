@@ -15,4 +15,7 @@ mod inspect;
 mod network;
 mod policy;
 mod projection;
+mod report_edges;
+mod report_html;
+mod snapshots;
 mod sweep;

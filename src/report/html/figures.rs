@@ -129,7 +129,12 @@ fn bar(g: &Group, y: f64, row_h: f64, left: f64, x: &dyn Fn(f64) -> f64) -> Stri
     match parts {
         Some((b, m)) => {
             let (x0, xb, xm) = (x(0.0), x(b), x(m));
-            let unsure = if e.bias_detected { "" } else { " unsure" };
+            // As the table's '?': a positive bias within resampling noise.
+            let unsure = if b > 0.0 && !e.bias_detected {
+                " unsure"
+            } else {
+                ""
+            };
             let (by, bh) = (y + 4.0, row_h - 8.0);
             let _ = write!(
                 s,

@@ -30,7 +30,7 @@ fn summary_row(name: &str, s: &Option<Summary>) -> String {
 
 fn columns_table(r: &InspectReport) -> String {
     let mut s = String::from(
-        "<div class=\"scroll\"><table id=\"columns\">\n<thead><tr><th scope=\"col\">role</th>\
+        "<div class=\"scroll\"><table id=\"columns\" class=\"sortable\">\n<thead><tr><th scope=\"col\">role</th>\
          <th scope=\"col\">headers</th><th scope=\"col\">column numbers</th></tr></thead>\n\
          <tbody>\n",
     );
