@@ -60,18 +60,7 @@ fn a_network_policy_reproduces_the_logged_scores() {
     let net = run_json(&with);
     assert_eq!(net["input"]["parameters"][0], "mu.weight[0,0]");
     assert_eq!(net["input"]["parameters"][7], "log_std[1]");
-    for (x, y) in cols["estimators"]
-        .as_array()
-        .unwrap()
-        .iter()
-        .zip(net["estimators"].as_array().unwrap())
-    {
-        let (vx, vy) = (
-            x["variance"].as_f64().unwrap(),
-            y["variance"].as_f64().unwrap(),
-        );
-        assert!((vx - vy).abs() <= 1e-9 * vx.abs(), "{vx} vs {vy}");
-    }
+    crate::util::assert_same_variances(&cols, &net, 1e-9);
 }
 
 fn hidden_actor(dir: &Dir) -> String {

@@ -30,18 +30,7 @@ fn audit_with_a_policy_matches_the_logged_scores() {
     assert_eq!(b["input"]["parameters"][0], "W[0,0]");
     assert_eq!(b["input"]["parameters"][7], "log_sigma[1]");
     assert_eq!(a["input"]["parameters"][0], "score_0");
-    for (x, y) in a["estimators"]
-        .as_array()
-        .unwrap()
-        .iter()
-        .zip(b["estimators"].as_array().unwrap())
-    {
-        let (vx, vy) = (
-            x["variance"].as_f64().unwrap(),
-            y["variance"].as_f64().unwrap(),
-        );
-        assert!((vx - vy).abs() <= 1e-9 * vx.abs(), "{vx} vs {vy}");
-    }
+    crate::util::assert_same_variances(&a, &b, 1e-9);
 }
 
 #[test]

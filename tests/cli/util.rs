@@ -72,3 +72,25 @@ pub fn strings<'a>(list: &'a serde_json::Value, key: &str) -> Vec<&'a str> {
         .map(|e| e[key].as_str().expect("a string field"))
         .collect()
 }
+
+/// Two audit reports (JSON) list the same estimators with the same variances, to `rel` relative:
+/// the check behind "scores from a policy equal the logged ones".
+pub fn assert_same_variances(a: &serde_json::Value, b: &serde_json::Value, rel: f64) {
+    let (xs, ys) = (
+        a["estimators"].as_array().unwrap(),
+        b["estimators"].as_array().unwrap(),
+    );
+    assert_eq!(xs.len(), ys.len());
+    for (x, y) in xs.iter().zip(ys) {
+        assert_eq!(x["name"], y["name"]);
+        let (vx, vy) = (
+            x["variance"].as_f64().unwrap(),
+            y["variance"].as_f64().unwrap(),
+        );
+        assert!(
+            (vx - vy).abs() <= rel * vx.abs(),
+            "{}: {vx} vs {vy}",
+            x["name"]
+        );
+    }
+}
