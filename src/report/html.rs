@@ -120,7 +120,10 @@ fn legend(entries: &[(&str, &str)], tail: &str) -> String {
             )
         })
         .collect();
-    s.push_str(&esc(tail));
+    if !tail.is_empty() {
+        s.push_str("– ");
+        s.push_str(&esc(tail));
+    }
     s
 }
 
@@ -290,7 +293,7 @@ fn audit_sections(r: &AuditReport) -> String {
                 ("unsure", "bias^2 within resampling noise"),
                 ("var", "variance"),
             ],
-            "The number at a bar's end is its MSE.",
+            "the number at a bar's end is its MSE.",
         ),
         BARS_HOWTO,
     );
@@ -382,10 +385,10 @@ fn sweep_table(r: &SweepReport) -> String {
     let mut s = String::from(
         "<div class=\"scroll\"><table id=\"points\" class=\"sortable\">\n<caption>One row per \
          grid point, in grid order; under mse its interval and standard error.</caption>\n\
-         <thead><tr><th scope=\"col\">point</th><th scope=\"col\">estimator</th>\
+         <thead><tr><th scope=\"col\">point</th><th scope=\"col\" class=\"text\">estimator</th>\
          <th scope=\"col\">bias^2</th><th scope=\"col\">variance</th><th scope=\"col\">mse</th>\
          <th scope=\"col\">snr</th><th scope=\"col\">ess</th><th scope=\"col\">episodes@snr</th>\
-         <th scope=\"col\">mark</th></tr></thead>\n<tbody>\n",
+         <th scope=\"col\" class=\"text\">mark</th></tr></thead>\n<tbody>\n",
     );
     for (i, p) in r.points.iter().enumerate() {
         s.push_str(&sweep_row(r, i, p));
@@ -526,15 +529,16 @@ fn gate_checks(g: &GateReport) -> String {
     use super::gate::result_word;
     let mut s = String::from(
         "<section id=\"checks\">\n<h2>Checks</h2>\n<div class=\"scroll\"><table id=\"rules\" \
-         class=\"sortable\">\n<thead><tr><th scope=\"col\">result</th><th scope=\"col\">\
-         estimator</th><th scope=\"col\">rule</th><th scope=\"col\">measured</th>\
-         <th scope=\"col\">margin</th><th scope=\"col\">detail</th></tr></thead>\n<tbody>\n",
+         class=\"sortable\">\n<thead><tr><th scope=\"col\">result</th><th scope=\"col\" \
+         class=\"text\">estimator</th><th scope=\"col\" class=\"text\">rule</th>\
+         <th scope=\"col\">measured</th><th scope=\"col\">margin</th><th scope=\"col\" \
+         class=\"text\">detail</th></tr></thead>\n<tbody>\n",
     );
     for o in &g.outcomes {
         let class = if o.passed { "pass" } else { "fail" };
         let _ = writeln!(
             s,
-            "<tr class=\"{class}\"><th scope=\"row\" class=\"{class}\">{}</th><td \
+            "<tr data-result=\"{class}\"><th scope=\"row\" class=\"{class}\">{}</th><td \
              class=\"text\"><code>{}</code></td><td class=\"text\">{}</td><td data-v=\"{}\">{}\
              </td><td data-v=\"{}\">{}</td><td class=\"text\">{}</td></tr>",
             result_word(o.passed),

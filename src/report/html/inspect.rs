@@ -31,7 +31,8 @@ fn summary_row(name: &str, s: &Option<Summary>) -> String {
 fn columns_table(r: &InspectReport) -> String {
     let mut s = String::from(
         "<div class=\"scroll\"><table id=\"columns\" class=\"sortable\">\n<thead><tr><th scope=\"col\">role</th>\
-         <th scope=\"col\">headers</th><th scope=\"col\">column numbers</th></tr></thead>\n\
+         <th scope=\"col\" class=\"text\">headers</th><th scope=\"col\" class=\"text\">column \
+         numbers</th></tr></thead>\n\
          <tbody>\n",
     );
     for a in &r.columns {
