@@ -165,12 +165,17 @@ pub fn render_with(r: &AuditReport, wide: bool) -> String {
     if let Some(line) = bias_legend(r) {
         out.push_str(&wrap(&line, WIDTH, "  "));
     }
+    // Estimators skipped for the same reason on one line (a log without a critic skips ten).
+    let mut reasons: Vec<(&str, Vec<&str>)> = Vec::new();
     for s in &r.skipped {
-        out.push_str(&wrap(
-            &format!("skipped {}: {}", s.name, s.reason),
-            WIDTH,
-            "  ",
-        ));
+        match reasons.iter_mut().find(|(why, _)| *why == s.reason) {
+            Some((_, names)) => names.push(&s.name),
+            None => reasons.push((&s.reason, vec![&s.name])),
+        }
+    }
+    for (why, names) in reasons {
+        let line = format!("skipped {}: {why}", names.join(", "));
+        out.push_str(&wrap(&line, WIDTH, "  "));
     }
     out.push_str(&wrap(&format!("verdict: {}", r.verdict.text), WIDTH, "  "));
     out
