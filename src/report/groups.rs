@@ -119,4 +119,80 @@ mod tests {
         assert!(close(Some(1.0), Some(1.0 + 1e-12)) && !close(Some(1.0), Some(1.001)));
         assert!(!close(None, Some(0.0)));
     }
+
+    fn row(name: &str, mse: f64) -> EstimatorRow {
+        EstimatorRow {
+            name: name.into(),
+            reference: name == "rtg",
+            gradient: Some(vec![1.0]),
+            gradient_norm: Some(1.0),
+            gradient_norm_interval: None,
+            variance: Some(mse / 2.0),
+            bias_sq: Some(mse / 2.0),
+            bias_sq_interval: None,
+            bias_z: Some(3.0),
+            bias_detected: true,
+            bias_norm_interval: None,
+            mse: Some(mse),
+            snr: Some(1.0),
+            ess: Some(1.0),
+            cosine_half: Some(0.5),
+            cosine_half_interval: None,
+            episodes_for_snr: Some(3),
+            bias_limited: false,
+            notes: vec![],
+        }
+    }
+
+    fn report(rows: Vec<EstimatorRow>, gamma: f64) -> AuditReport {
+        AuditReport {
+            tool: crate::report::Tool::current(),
+            input: Default::default(),
+            settings: crate::report::Settings {
+                gamma,
+                resamples: 10,
+                seed: 1,
+                confidence: 0.95,
+                target_snr: 1.0,
+                reference: "rtg".into(),
+                splits: 2,
+            },
+            signal: None,
+            signal_interval: None,
+            reference_variance: None,
+            estimators: rows,
+            skipped: vec![],
+            verdict: crate::report::Verdict {
+                best: None,
+                dominated_by: None,
+                text: String::new(),
+            },
+            warnings: Default::default(),
+        }
+    }
+
+    #[test]
+    fn rows_join_only_when_the_identity_holds_and_the_figures_agree() {
+        let r = report(
+            vec![
+                row("td", 2.0),
+                row("gae:0.5", 2.0),
+                row("gae:0", 2.0 * (1.0 + 1e-12)),
+                row("nstep:1", 2.5),
+            ],
+            0.99,
+        );
+        let g = groups(&r);
+        let names: Vec<String> = g.iter().map(|g| g.names()).collect();
+        // gae:0.5 has the same figures but no identity; nstep:1 the identity but other figures
+        // (which a bug would cause): both stay rows of their own.
+        assert_eq!(names, ["gae:0 = td", "gae:0.5", "nstep:1"]);
+        // rtg_discounted is rtg only at gamma = 1; the joined row keeps the reference mark.
+        let at = |gamma| {
+            let r = report(vec![row("rtg", 4.0), row("rtg_discounted", 4.0)], gamma);
+            groups(&r).iter().map(|g| g.label()).collect::<Vec<_>>()
+        };
+        assert_eq!(at(1.0), ["rtg = rtg_discounted (ref)"]);
+        assert_eq!(at(0.99), ["rtg (ref)", "rtg_discounted"]);
+    }
 }

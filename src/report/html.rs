@@ -146,7 +146,7 @@ fn facts(r: &AuditReport) -> String {
     }
     s.push_str("</p>\n");
     if let Some(sk) = &i.sketch {
-        let _ = writeln!(s, "<p class=\"facts\">{}</p>", esc(&sk.note));
+        let _ = writeln!(s, "<p class=\"facts\">{}</p>", esc(&sentence(&sk.note)));
     }
     s
 }
