@@ -53,15 +53,27 @@ pub enum Command {
 /// How to read the log (shared by every command).
 #[derive(Debug, Args)]
 pub struct LogArgs {
-    /// Rollout log: CSV with a header row, optionally gzip-compressed; `-` reads stdin
+    /// Rollout log: CSV with a header row (optionally gzip-compressed), Parquet or Arrow IPC;
+    /// `-` reads stdin (CSV); a folder stands for its files in name order
     pub log: String,
+
+    /// Further logs read after the first as one log (same columns; an episode may not span
+    /// files, except the runs of --env-col)
+    #[arg(value_name = "MORE_LOGS")]
+    pub more_logs: Vec<String>,
+
+    /// Vector-environment layout: the column holding the environment index. Episode ids are
+    /// then derived (ENV/RUN): each environment's rows in order, split after each end row
+    #[arg(long, value_name = "HEADER")]
+    pub env_col: Option<String>,
 
     /// Field delimiter (one ASCII character; `\t` for tab)
     #[arg(long, default_value = ",", value_name = "CHAR")]
     pub delimiter: String,
 
     /// Read role ROLE from column HEADER (repeatable). Roles: episode, step, reward,
-    /// terminated, truncated, value, next_value, q, logp
+    /// terminated, truncated, done, value, next_value, q, logp; and score, obs, act for a
+    /// list column of a Parquet or Arrow file
     #[arg(long = "col", value_name = "ROLE=HEADER")]
     pub columns: Vec<String>,
 
@@ -370,6 +382,7 @@ impl LogArgs {
         columns.score_prefix = self.score_prefix.clone();
         columns.obs_prefix = self.obs_prefix.clone();
         columns.act_prefix = self.act_prefix.clone();
+        columns.env = self.env_col.clone();
         Ok(ReadOptions {
             delimiter,
             columns,
@@ -402,7 +415,9 @@ impl LogArgs {
     }
 
     pub fn open(&self) -> Result<LogReader> {
-        LogReader::open(&self.log, &self.read_options()?)
+        let mut paths = vec![self.log.clone()];
+        paths.extend(self.more_logs.iter().cloned());
+        LogReader::open_many(&paths, &self.read_options()?)
     }
 }
 

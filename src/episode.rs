@@ -35,6 +35,8 @@ pub struct Episode {
     pub act_dim: usize,
     pub act: Vec<f64>,
     pub end: End,
+    /// The environment of a vector-environment layout (`--env-col`), None otherwise.
+    pub env: Option<String>,
 }
 
 impl Episode {
@@ -64,6 +66,7 @@ impl Episode {
             act_dim: layout.act_dim,
             act: Vec::new(),
             end: End::Terminated,
+            env: None,
         }
     }
 

@@ -111,6 +111,8 @@ pub struct InspectReport {
     pub obs_dim: usize,
     pub act_dim: usize,
     pub columns: Vec<Assignment>,
+    /// How the end flags were read (the convention and the columns that decided it).
+    pub end_flags: crate::log::EndFlags,
     /// Header columns that got no role and are ignored.
     pub unused_columns: Vec<String>,
     /// Discount of the returns the critic quality refers to.
@@ -175,7 +177,7 @@ pub fn run(
         .iter()
         .flat_map(|a| a.columns.iter().copied())
         .collect();
-    let unused_columns = (1..=schema.headers.len())
+    let unused_columns = (1..=schema.file_columns())
         .filter(|c| !used.contains(c))
         .map(|c| schema.headers[c - 1].clone())
         .collect();
@@ -197,6 +199,7 @@ pub fn run(
         obs_dim: schema.obs.len(),
         act_dim: schema.act.len(),
         columns,
+        end_flags: schema.end_flags(),
         unused_columns,
         gamma,
         critic: crate::critic::CriticQuality {

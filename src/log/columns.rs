@@ -17,10 +17,16 @@ pub enum Role {
     NextValue,
     Q,
     Logp,
+    /// The episode ended for any reason (the older convention): with a truncation flag,
+    /// terminated = done and not truncated.
+    Done,
 }
 
+/// Number of single-column roles.
+const ROLES: usize = 10;
+
 impl Role {
-    pub const ALL: [Role; 9] = [
+    pub const ALL: [Role; ROLES] = [
         Role::Episode,
         Role::Step,
         Role::Reward,
@@ -30,6 +36,7 @@ impl Role {
         Role::NextValue,
         Role::Q,
         Role::Logp,
+        Role::Done,
     ];
 
     /// The role's name on the command line (`--col NAME=HEADER`), also its default header.
@@ -44,6 +51,25 @@ impl Role {
             Role::NextValue => "next_value",
             Role::Q => "q",
             Role::Logp => "logp",
+            Role::Done => "done",
+        }
+    }
+
+    /// The headers a role is found under by default, in order of preference: its key, and for
+    /// the end flags the names the trade also uses (plural forms of vectorised loggers, the
+    /// offline-dataset `terminals` / `timeouts`).
+    pub fn defaults(self) -> &'static [&'static str] {
+        match self {
+            Role::Terminated => &["terminated", "terminals", "terminations"],
+            Role::Truncated => &["truncated", "timeouts", "truncations"],
+            Role::Done => &["done", "dones"],
+            Role::Episode => &["episode"],
+            Role::Step => &["step"],
+            Role::Reward => &["reward"],
+            Role::Value => &["value"],
+            Role::NextValue => &["next_value"],
+            Role::Q => &["q"],
+            Role::Logp => &["logp"],
         }
     }
 
@@ -60,7 +86,8 @@ impl Role {
     }
 }
 
-/// The vector roles, found by a header prefix followed by an index.
+/// The vector roles, found by a header prefix followed by an index, or (Parquet and Arrow)
+/// as one list column named by `--col score=NAME` (default name: the role's key).
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum VectorRole {
     Score,
@@ -68,25 +95,44 @@ pub enum VectorRole {
     Act,
 }
 
+impl VectorRole {
+    pub const ALL: [VectorRole; 3] = [VectorRole::Score, VectorRole::Obs, VectorRole::Act];
+
+    pub fn key(self) -> &'static str {
+        match self {
+            VectorRole::Score => "score",
+            VectorRole::Obs => "obs",
+            VectorRole::Act => "act",
+        }
+    }
+}
+
 /// What the user asked for: a header per role and a prefix per vector role.
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub struct ColumnSpec {
-    headers: [String; 9],
+    headers: [String; ROLES],
     /// Roles the user named explicitly; a missing explicit header is an error even if optional.
-    explicit: [bool; 9],
+    explicit: [bool; ROLES],
     pub score_prefix: String,
     pub obs_prefix: String,
     pub act_prefix: String,
+    /// List columns named for the vector roles (`--col obs=robot.state`), by [`VectorRole`].
+    pub lists: [Option<String>; 3],
+    /// The environment column of a vector-environment layout (`--env-col`): episode ids are
+    /// then derived from runs within each environment instead of read.
+    pub env: Option<String>,
 }
 
 impl Default for ColumnSpec {
     fn default() -> Self {
         ColumnSpec {
             headers: Role::ALL.map(|r| r.key().to_string()),
-            explicit: [false; 9],
+            explicit: [false; ROLES],
             score_prefix: "score_".into(),
             obs_prefix: "obs_".into(),
             act_prefix: "act_".into(),
+            lists: [None, None, None],
+            env: None,
         }
     }
 }
@@ -97,16 +143,21 @@ impl ColumnSpec {
         let (role, header) = assignment
             .split_once('=')
             .ok_or_else(|| format!("'{assignment}' is not of the form ROLE=HEADER"))?;
+        if header.is_empty() {
+            return Err(format!("empty header for role '{}'", role.trim()));
+        }
+        if let Some(v) = VectorRole::ALL.iter().position(|v| v.key() == role.trim()) {
+            self.lists[v] = Some(header.to_string());
+            return Ok(());
+        }
         let role = Role::parse(role.trim()).ok_or_else(|| {
             let names: Vec<_> = Role::ALL.iter().map(|r| r.key()).collect();
             format!(
-                "unknown column role '{role}'; roles are {}",
+                "unknown column role '{role}'; roles are {} (and score, obs, act for a list \
+                 column of a Parquet or Arrow file)",
                 names.join(", ")
             )
         })?;
-        if header.is_empty() {
-            return Err(format!("empty header for role '{}'", role.key()));
-        }
         self.headers[role.index()] = header.to_string();
         self.explicit[role.index()] = true;
         Ok(())
@@ -117,14 +168,50 @@ impl ColumnSpec {
     }
 }
 
-/// The resolved layout of one log's header row.
+/// How a role's column was found: under its key, under another name the trade uses for it,
+/// or named with `--col`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Found {
+    Default,
+    Synonym,
+    Option,
+}
+
+/// A list column of a Parquet or Arrow file read as a vector role; its elements appear in
+/// [`Schema::headers`] as `name[k]` from index `first` on.
+#[derive(Debug, Clone, PartialEq)]
+pub struct ListColumn {
+    pub role: VectorRole,
+    pub column: usize,
+    pub width: usize,
+    pub first: usize,
+}
+
+/// The resolved layout of one log's header row (or a columnar file's top-level fields).
 #[derive(Debug, Clone, PartialEq)]
 pub struct Schema {
+    /// The columns, then the elements of list columns (`name[k]`), which vector roles index.
     pub headers: Vec<String>,
-    roles: [Option<usize>; 9],
+    roles: [Option<usize>; ROLES],
+    found: [Found; ROLES],
     pub scores: Vec<usize>,
     pub obs: Vec<usize>,
     pub act: Vec<usize>,
+    /// The environment column (`--env-col`), which then stands in for the episode id.
+    pub env: Option<usize>,
+    pub lists: Vec<ListColumn>,
+    /// Columns of the file ([`Schema::headers`] past them are list elements).
+    real: usize,
+    /// Why a found end-flag column is not read, if one is not.
+    end_note: Option<String>,
+}
+
+/// How the end flags were read: the convention's name and the columns that decided it.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct EndFlags {
+    pub convention: &'static str,
+    pub reason: String,
 }
 
 /// One line of the "which header got which role" table.
@@ -135,10 +222,28 @@ pub struct Assignment {
     pub headers: Vec<String>,
     /// 1-based column numbers.
     pub columns: Vec<usize>,
+    /// Elements per row, for a vector role read from one list column.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub list_width: Option<usize>,
+    /// How a single-column role was found.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub found: Option<Found>,
 }
 
 impl Schema {
+    /// A CSV header row's roles.
     pub fn resolve(spec: &ColumnSpec, headers: Vec<String>, file: &str) -> Result<Schema> {
+        Self::resolve_with_lists(spec, headers, &[], file)
+    }
+
+    /// Roles of columns some of which may be lists of numbers: `widths[c]` is the width of
+    /// column c's lists (empty for CSV, where no column is a list).
+    pub fn resolve_with_lists(
+        spec: &ColumnSpec,
+        headers: Vec<String>,
+        widths: &[Option<usize>],
+        file: &str,
+    ) -> Result<Schema> {
         let at = |column: Option<(usize, String)>| Position {
             file: file.to_string(),
             line: Some(1),
@@ -159,45 +264,152 @@ impl Schema {
                 ));
             }
         }
-        let mut roles = [None; 9];
-        for role in Role::ALL {
-            let wanted = spec.header(role);
-            roles[role.index()] = headers.iter().position(|h| h == wanted);
-            if roles[role.index()].is_none() && (role.required() || spec.explicit[role.index()]) {
-                let hint = match closest(wanted, &headers) {
-                    Some(near) => format!(
-                        "did you mean '{near}'? If so, pass --col {}={near}",
-                        role.key()
-                    ),
-                    None => format!(
-                        "name the column that holds it with --col {}=HEADER",
-                        role.key()
-                    ),
-                };
-                return Err(Error::input_hint(
-                    at(None),
-                    format!(
-                        "required column '{wanted}' (role {}) is missing from the header",
-                        role.key()
-                    ),
-                    hint,
-                ));
+        let (roles, found, end_note) = resolve_roles(spec, &headers, file)?;
+        let env = match &spec.env {
+            Some(name) => Some(find_required(
+                name,
+                "--env-col",
+                &headers,
+                file,
+                "--env-col",
+            )?),
+            None => None,
+        };
+        let mut schema = Schema {
+            real: headers.len(),
+            headers,
+            roles,
+            found,
+            scores: Vec::new(),
+            obs: Vec::new(),
+            act: Vec::new(),
+            env,
+            lists: Vec::new(),
+            end_note,
+        };
+        for v in VectorRole::ALL {
+            let cols = schema.vector_columns(spec, v, widths, file)?;
+            match v {
+                VectorRole::Score => schema.scores = cols,
+                VectorRole::Obs => schema.obs = cols,
+                VectorRole::Act => schema.act = cols,
             }
         }
-        let scalar: Vec<usize> = roles.iter().flatten().copied().collect();
-        let vector = |prefix: &str| -> Result<Vec<usize>> {
-            let found: Vec<usize> = (0..headers.len())
-                .filter(|i| !scalar.contains(i) && headers[*i].starts_with(prefix))
-                .collect();
-            order_by_index(&headers, found, prefix, file)
+        Ok(schema)
+    }
+
+    /// A vector role's columns: one list column (Parquet, Arrow) or prefixed columns.
+    fn vector_columns(
+        &mut self,
+        spec: &ColumnSpec,
+        v: VectorRole,
+        widths: &[Option<usize>],
+        file: &str,
+    ) -> Result<Vec<usize>> {
+        let prefix = match v {
+            VectorRole::Score => &spec.score_prefix,
+            VectorRole::Obs => &spec.obs_prefix,
+            VectorRole::Act => &spec.act_prefix,
         };
-        Ok(Schema {
-            scores: vector(&spec.score_prefix)?,
-            obs: vector(&spec.obs_prefix)?,
-            act: vector(&spec.act_prefix)?,
-            roles,
-            headers,
-        })
+        let explicit = spec.lists[v as usize].as_deref();
+        let name = explicit.unwrap_or(v.key());
+        let at = |c: Option<usize>| Position {
+            file: file.to_string(),
+            line: Some(1),
+            column: c.map(|c| (c + 1, self.headers[c].clone())),
+        };
+        let list = self.headers[..self.real].iter().position(|h| h == name);
+        let list = match (list, explicit) {
+            (_, Some(_)) if widths.is_empty() => {
+                return Err(Error::input_hint(
+                    at(None),
+                    format!("--col {}={name}: a CSV log has no list columns", v.key()),
+                    format!(
+                        "in CSV give one column per element and name their prefix with \
+                         --{}-prefix",
+                        v.key()
+                    ),
+                ));
+            }
+            (None, Some(_)) => {
+                find_required(name, v.key(), &self.headers[..self.real], file, "--col")?;
+                None
+            }
+            (Some(c), _) if widths.get(c).copied().flatten().is_some() => Some(c),
+            (Some(c), Some(_)) => {
+                return Err(Error::input(
+                    at(Some(c)),
+                    format!(
+                        "--col {}={name}: this column is not a list of numbers",
+                        v.key()
+                    ),
+                ));
+            }
+            (Some(_), None) | (None, None) => None,
+        };
+        let scalar: Vec<usize> = self
+            .roles
+            .iter()
+            .flatten()
+            .chain(&self.env)
+            .copied()
+            .collect();
+        let found: Vec<usize> = (0..self.real)
+            .filter(|i| !scalar.contains(i) && self.headers[*i].starts_with(prefix.as_str()))
+            .collect();
+        let Some(c) = list else {
+            return order_by_index(&self.headers, found, prefix, file);
+        };
+        if let Some(&p) = found.first() {
+            return Err(Error::input_hint(
+                at(Some(p)),
+                format!(
+                    "role {} has both a list column '{name}' and columns named '{prefix}...'",
+                    v.key()
+                ),
+                format!(
+                    "name the one to read: --col {}={name}, or --{}-prefix for the others",
+                    v.key(),
+                    v.key()
+                ),
+            ));
+        }
+        self.add_list(v, c, widths[c].expect("a list column"), file)
+    }
+
+    /// Adds list column `c` (lists of `width` numbers) as vector role `v`: its elements
+    /// become columns `name[k]` past the file's.
+    fn add_list(
+        &mut self,
+        v: VectorRole,
+        c: usize,
+        width: usize,
+        file: &str,
+    ) -> Result<Vec<usize>> {
+        let first = self.headers.len();
+        if first.saturating_add(width) > crate::limits::MAX_COLUMNS {
+            return Err(Error::input(
+                Position {
+                    file: file.to_string(),
+                    line: Some(1),
+                    column: Some((c + 1, self.headers[c].clone())),
+                },
+                format!(
+                    "lists of {width} numbers: more than the limit of {} columns",
+                    crate::limits::MAX_COLUMNS
+                ),
+            ));
+        }
+        let name = self.headers[c].clone();
+        self.headers
+            .extend((0..width).map(|k| format!("{name}[{k}]")));
+        self.lists.push(ListColumn {
+            role: v,
+            column: c,
+            width,
+            first,
+        });
+        Ok((first..first + width).collect())
     }
 
     pub fn column(&self, role: Role) -> Option<usize> {
@@ -208,36 +420,241 @@ impl Schema {
         self.column(role).is_some()
     }
 
+    /// The column episode ids are read from: the environment column in a vector-environment
+    /// layout, else the episode column.
+    pub fn id_column(&self) -> usize {
+        self.env
+            .or(self.column(Role::Episode))
+            .expect("resolve requires an episode or environment column")
+    }
+
+    /// Columns of the file itself (list elements excluded).
+    pub fn file_columns(&self) -> usize {
+        self.real
+    }
+
     pub fn score_dim(&self) -> usize {
         self.scores.len()
     }
 
+    /// Whether rows carry any end flag.
+    pub fn has_end_flags(&self) -> bool {
+        self.has(Role::Terminated) || self.has(Role::Truncated) || self.has(Role::Done)
+    }
+
+    /// The end-flag convention and the columns that decided it, in words.
+    pub fn end_flags(&self) -> EndFlags {
+        let desc = |r: Role| {
+            self.column(r).map(|c| {
+                let how = match self.found[r.index()] {
+                    Found::Default => "",
+                    Found::Synonym => " (a name the trade uses for it)",
+                    Found::Option => " (named with --col)",
+                };
+                format!("'{}' read as {}{how}", self.headers[c], r.key())
+            })
+        };
+        let (done, term, trunc) = (
+            desc(Role::Done),
+            desc(Role::Terminated),
+            desc(Role::Truncated),
+        );
+        let (convention, mut reason) = match (done, term, trunc) {
+            (Some(d), _, Some(t)) => (
+                "done+truncated",
+                format!(
+                    "{d}, {t}: an end is terminal when done is set and truncated is not, a \
+                     time-limit cut when truncated is set"
+                ),
+            ),
+            (Some(d), _, None) => (
+                "done",
+                format!("{d} and no truncation flag: every end is taken as terminal"),
+            ),
+            (None, Some(a), Some(t)) => (
+                "terminated+truncated",
+                format!("{a}, {t}: an end flagged both ways is taken as terminal"),
+            ),
+            (None, Some(a), None) => (
+                "terminated",
+                format!("{a} and no truncation flag: every flagged end is terminal"),
+            ),
+            (None, None, Some(t)) => (
+                "truncated",
+                format!("{t} and no terminal flag: every flagged end is a time-limit cut"),
+            ),
+            (None, None, None) => (
+                "none",
+                "no end-flag column: each episode ends at its last row, taken as terminated"
+                    .to_string(),
+            ),
+        };
+        if let Some(note) = &self.end_note {
+            reason = format!("{reason}; {note}");
+        }
+        EndFlags { convention, reason }
+    }
+
     pub fn assignments(&self) -> Vec<Assignment> {
+        let one = |role: &str, c: usize, found: Option<Found>| Assignment {
+            role: role.to_string(),
+            headers: vec![self.headers[c].clone()],
+            columns: vec![c + 1],
+            list_width: None,
+            found,
+        };
         let mut out: Vec<Assignment> = Role::ALL
             .iter()
             .filter_map(|&r| {
-                self.column(r).map(|c| Assignment {
-                    role: r.key().to_string(),
-                    headers: vec![self.headers[c].clone()],
-                    columns: vec![c + 1],
-                })
+                self.column(r)
+                    .map(|c| one(r.key(), c, Some(self.found[r.index()])))
             })
             .collect();
-        for (name, cols) in [
-            ("score", &self.scores),
-            ("obs", &self.obs),
-            ("act", &self.act),
+        if let Some(c) = self.env {
+            out.push(one("env", c, Some(Found::Option)));
+        }
+        for (v, cols) in [
+            (VectorRole::Score, &self.scores),
+            (VectorRole::Obs, &self.obs),
+            (VectorRole::Act, &self.act),
         ] {
-            if !cols.is_empty() {
+            if let Some(l) = self.lists.iter().find(|l| l.role == v) {
+                let mut a = one(v.key(), l.column, None);
+                a.list_width = Some(l.width);
+                out.push(a);
+            } else if !cols.is_empty() {
                 out.push(Assignment {
-                    role: name.to_string(),
+                    role: v.key().to_string(),
                     headers: cols.iter().map(|&c| self.headers[c].clone()).collect(),
                     columns: cols.iter().map(|&c| c + 1).collect(),
+                    list_width: None,
+                    found: None,
                 });
             }
         }
         out
     }
+}
+
+type Roles = ([Option<usize>; ROLES], [Found; ROLES], Option<String>);
+
+/// Each single-column role's column: the one named with `--col`, else the first of its
+/// default names present. A done column is read only without a terminated column (or when
+/// named), since terminated = done and not truncated.
+fn resolve_roles(spec: &ColumnSpec, headers: &[String], file: &str) -> Result<Roles> {
+    let mut roles = [None; ROLES];
+    let mut found = [Found::Default; ROLES];
+    for role in Role::ALL {
+        let i = role.index();
+        if spec.explicit[i] {
+            let flag = format!("--col {}", role.key());
+            roles[i] = Some(find_required(
+                spec.header(role),
+                role.key(),
+                headers,
+                file,
+                &flag,
+            )?);
+            found[i] = Found::Option;
+            continue;
+        }
+        let hit = role
+            .defaults()
+            .iter()
+            .enumerate()
+            .find_map(|(k, name)| headers.iter().position(|h| h == name).map(|p| (k, p)));
+        if let Some((k, p)) = hit {
+            roles[i] = Some(p);
+            found[i] = if k == 0 {
+                Found::Default
+            } else {
+                Found::Synonym
+            };
+        } else if role.required() && !(role == Role::Episode && spec.env.is_some()) {
+            let flag = format!("--col {}", role.key());
+            find_required(role.key(), role.key(), headers, file, &flag)?;
+        }
+    }
+    if spec.env.is_some() {
+        // Ids are derived from the environment column: an episode column is not read.
+        roles[Role::Episode.index()] = None;
+    }
+    // A column found by default that another role was given explicitly is not read twice.
+    for r in Role::ALL {
+        let taken = Role::ALL
+            .iter()
+            .any(|&o| o != r && spec.explicit[o.index()] && roles[o.index()] == roles[r.index()]);
+        if taken && !spec.explicit[r.index()] {
+            roles[r.index()] = None;
+        }
+    }
+    let (d, t) = (Role::Done.index(), Role::Terminated.index());
+    let mut note = None;
+    if let (Some(dc), Some(tc)) = (roles[d], roles[t]) {
+        match (spec.explicit[d], spec.explicit[t]) {
+            (true, true) => {
+                return Err(Error::input_hint(
+                    Position {
+                        file: file.to_string(),
+                        line: Some(1),
+                        column: None,
+                    },
+                    "both a done and a terminated column were named",
+                    "terminated = done and not truncated: name one of them",
+                ));
+            }
+            (true, false) => {
+                note = Some(format!(
+                    "'{}' not read (--col done given, and terminated = done and not truncated)",
+                    headers[tc]
+                ));
+                roles[t] = None;
+            }
+            (false, _) => {
+                note = Some(format!(
+                    "'{}' not read as done (the log has a terminated column)",
+                    headers[dc]
+                ));
+                roles[d] = None;
+            }
+        }
+    }
+    Ok((roles, found, note))
+}
+
+/// The column named `wanted` (for `role`), or an error with the nearest header suggested.
+fn find_required(
+    wanted: &str,
+    role: &str,
+    headers: &[String],
+    file: &str,
+    flag: &str,
+) -> Result<usize> {
+    if let Some(p) = headers.iter().position(|h| h == wanted) {
+        return Ok(p);
+    }
+    let hint = match closest(wanted, headers) {
+        Some(near) if flag == "--env-col" => {
+            format!("did you mean '{near}'? If so, pass --env-col {near}")
+        }
+        Some(near) => format!("did you mean '{near}'? If so, pass {flag}={near}"),
+        None if flag == "--env-col" => "name the column that holds it with --env-col HEADER".into(),
+        None => format!("name the column that holds it with {flag}=HEADER"),
+    };
+    let what = if flag == "--env-col" {
+        "environment".to_string()
+    } else {
+        role.to_string()
+    };
+    Err(Error::input_hint(
+        Position {
+            file: file.to_string(),
+            line: Some(1),
+            column: None,
+        },
+        format!("required column '{wanted}' (role {what}) is missing from the header"),
+        hint,
+    ))
 }
 
 /// Orders prefixed columns by their numeric suffix (`score_10` after `score_9`); if any suffix
@@ -342,5 +759,68 @@ mod tests {
         .unwrap_err()
         .to_string();
         assert!(e.contains("column 3"), "{e}");
+    }
+
+    // The trade's names for the end flags are found by default and reported as such; a done
+    // column is read only without a terminated column, unless named.
+    #[test]
+    fn end_flag_synonyms_and_the_done_convention() {
+        let s = Schema::resolve(
+            &ColumnSpec::default(),
+            hs(&["episode", "reward", "dones", "timeouts"]),
+            "f",
+        )
+        .unwrap();
+        assert_eq!(
+            (s.column(Role::Done), s.column(Role::Truncated)),
+            (Some(2), Some(3))
+        );
+        assert_eq!(s.column(Role::Terminated), None);
+        let e = s.end_flags();
+        assert_eq!(e.convention, "done+truncated");
+        assert!(
+            e.reason
+                .contains("'timeouts' read as truncated (a name the trade"),
+            "{e:?}"
+        );
+        let both = hs(&["episode", "reward", "done", "terminated", "truncated"]);
+        let s = Schema::resolve(&ColumnSpec::default(), both.clone(), "f").unwrap();
+        assert_eq!(
+            (s.column(Role::Done), s.column(Role::Terminated)),
+            (None, Some(3))
+        );
+        assert!(s.end_flags().reason.contains("'done' not read as done"));
+        let mut spec = ColumnSpec::default();
+        spec.remap("done=done").unwrap();
+        let s = Schema::resolve(&spec, both.clone(), "f").unwrap();
+        assert_eq!(
+            (s.column(Role::Done), s.column(Role::Terminated)),
+            (Some(2), None)
+        );
+        spec.remap("terminated=terminated").unwrap();
+        assert!(Schema::resolve(&spec, both, "f").is_err());
+    }
+
+    #[test]
+    fn env_column_replaces_the_episode_id_and_lists_need_a_columnar_file() {
+        let spec = ColumnSpec {
+            env: Some("env".into()),
+            ..ColumnSpec::default()
+        };
+        let s = Schema::resolve(&spec, hs(&["env", "reward", "done"]), "f").unwrap();
+        assert_eq!((s.id_column(), s.column(Role::Episode)), (0, None));
+        let e = Schema::resolve(&spec, hs(&["envs", "reward"]), "f").unwrap_err();
+        assert!(e.to_string().contains("did you mean 'envs'"), "{e}");
+        let mut spec = ColumnSpec::default();
+        spec.remap("obs=robot.state").unwrap();
+        let h = hs(&["episode", "reward", "robot.state"]);
+        let e = Schema::resolve(&spec, h.clone(), "f")
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("a CSV log has no list columns"), "{e}");
+        let s = Schema::resolve_with_lists(&spec, h, &[None, None, Some(3)], "f").unwrap();
+        assert_eq!(s.obs, vec![3, 4, 5]);
+        assert_eq!(s.headers[5], "robot.state[2]");
+        assert_eq!(s.file_columns(), 3);
     }
 }

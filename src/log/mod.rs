@@ -1,29 +1,36 @@
-//! The rollout-log reader: CSV rows (one per step, episodes possibly interleaved) in, finished
+//! The rollout-log reader: rows (one per step, episodes possibly interleaved) in, finished
 //! episodes out, one at a time. Memory is bounded by the episodes still open and a few blocks
-//! of input, never by the file. Every malformed field is an error naming file, line and column.
+//! of input, never by the file. Every malformed field is an error naming file, line (or row
+//! group and row) and column.
 //!
-//! Blocks of whole records are cut sequentially ([`chunks`]), parsed in parallel ([`rows`]),
-//! and assembled into episodes sequentially in file order, so results and the first error
-//! reported do not depend on the thread count.
+//! Formats differ only in how a block of typed rows is produced: CSV blocks of whole records
+//! are cut sequentially ([`chunks`]) and parsed in parallel ([`rows`]); Parquet and Arrow
+//! files are decoded batch by batch ([`columnar`]). Every block goes through the same
+//! sequential episode assembly in file order ([`assemble`]), so results and the first error
+//! reported do not depend on the format or the thread count. Several files are read as one
+//! log, in the order given.
 
+pub mod assemble;
 pub mod chunks;
+pub mod columnar;
 pub mod columns;
 pub mod fields;
 mod pipeline;
 pub mod rows;
 pub mod source;
 
-pub use columns::{Assignment, ColumnSpec, Role, Schema};
+pub use columns::{Assignment, ColumnSpec, EndFlags, Role, Schema};
 pub use source::Progress;
 
-use crate::episode::{End, Episode, Layout};
+use crate::episode::{Episode, Layout};
 use crate::error::{Error, Position, Result};
 use crate::warnings::Warnings;
+use assemble::{Assembler, Locate, Shape};
 use chunks::{ChunkError, Chunker, Tail, Tuning};
 use indicatif::ProgressBar;
 use pipeline::{Item, Pipeline};
-use rows::{Parsed, Row, RowParser};
-use std::collections::{HashMap, VecDeque};
+use rows::{Parsed, RowParser};
+use std::collections::VecDeque;
 use std::io::Read;
 use std::sync::Arc;
 
@@ -48,13 +55,8 @@ impl Default for ReadOptions {
     }
 }
 
-struct Open {
-    episode: Episode,
-    last_step: Option<i64>,
-}
-
-/// Where parsed blocks come from: a producer thread reading and parsing ahead, or (for tests
-/// and fuzzing) the chunker called inline.
+/// Where parsed CSV blocks come from: a producer thread reading and parsing ahead, or (for
+/// tests and fuzzing) the chunker called inline.
 enum Feed {
     Threaded(Pipeline),
     /// The chunker and spent blocks to parse into.
@@ -95,58 +97,101 @@ impl Feed {
     }
 }
 
+/// The file being read: CSV blocks (None once stopped) or columnar batches.
+enum Source {
+    Csv {
+        feed: Option<Feed>,
+        parser: Arc<RowParser>,
+    },
+    Columnar(Box<columnar::Batches>, Option<Parsed>),
+}
+
+impl Source {
+    /// The next block of rows, None at the end of the file.
+    fn next(&mut self, file: &str) -> Option<Result<Parsed>> {
+        match self {
+            Source::Csv { feed, parser } => match feed.as_mut()?.next(parser) {
+                Some(Item::Block(b)) => Some(Ok(b)),
+                Some(Item::ReadError(e)) => Some(Err(chunk_error(file, e))),
+                None => None,
+            },
+            Source::Columnar(b, spare) => b.next_block(spare.take().unwrap_or_default()).map(Ok),
+        }
+    }
+
+    fn recycle(&mut self, block: Parsed) {
+        match self {
+            Source::Csv { feed: Some(f), .. } => f.recycle(block),
+            Source::Csv { feed: None, .. } => {}
+            Source::Columnar(_, spare) => *spare = Some(block),
+        }
+    }
+
+    fn loc(&self) -> &dyn Locate {
+        match self {
+            Source::Csv { parser, .. } => parser.as_ref(),
+            Source::Columnar(b, _) => b.locator(),
+        }
+    }
+
+    /// What a record is called in messages about an earlier file.
+    fn unit(&self) -> &'static str {
+        match self {
+            Source::Csv { .. } => "line",
+            Source::Columnar(..) => "row",
+        }
+    }
+}
+
+/// One file opened: its rows' source, its schema, the rows already parsed with its header.
+struct Opened {
+    source: Source,
+    schema: Schema,
+    first: Option<Parsed>,
+    compressed: bool,
+    bar: Option<ProgressBar>,
+}
+
 /// Streaming reader. Call [`LogReader::next_episode`] until it returns `Ok(None)`.
 pub struct LogReader {
-    /// Reads and parses blocks; None once stopped.
-    feed: Option<Feed>,
-    parser: Arc<RowParser>,
+    source: Source,
+    /// The file being read, and all of them (for reports).
     file: String,
+    label: String,
+    /// Files still to read, and the options to open them with.
+    rest: VecDeque<String>,
+    options: ReadOptions,
     schema: Schema,
-    layout: Layout,
-    has_end_flags: bool,
     /// Parsed blocks not yet assembled, and the position in the first of them.
     pending: VecDeque<Parsed>,
     cursor: usize,
-    open: HashMap<Vec<u8>, Open>,
-    /// 128-bit digests of finished episodes' ids ([`id_key`]) and the line that ended each,
-    /// to detect a reused id: about 32 bytes per finished episode instead of its id.
-    ended: HashMap<u128, u64>,
-    leftovers: Vec<Episode>,
-    input_done: bool,
+    assembler: Assembler,
     at_eof: bool,
     compressed: bool,
     rows: u64,
-    /// Approximate bytes held by open episodes, against `budget`.
-    held: u64,
-    budget: crate::limits::Budget,
-    warnings: Warnings,
     bar: Option<ProgressBar>,
 }
 
 impl LogReader {
     /// Opens `path` (`-` for stdin) and reads its header row.
     pub fn open(path: &str, options: &ReadOptions) -> Result<Self> {
-        let src = source::open(path, options.progress)?;
-        let name = source::display_name(path);
-        let compressed = src.compressed;
-        let mut reader = Self::from_reader(src.reader, &name, options, src.bar);
-        if compressed {
-            // Damaged deflate data can decode into plausible garbage; gzip's checksum is only
-            // read at the end of the stream, so on any input error look there first.
-            if let Err(e) = reader {
-                // The failed reader consumed the stream; decode a fresh copy (not possible for
-                // stdin, which keeps the original error).
-                let damage = (path != "-")
-                    .then(|| source::open(path, Progress::Hidden).ok())
-                    .flatten()
-                    .and_then(|mut fresh| stream_damage(&name, &mut fresh.reader));
-                return Err(damage.unwrap_or(e));
-            }
-            if let Ok(r) = reader.as_mut() {
-                r.compressed = true;
-            }
-        }
-        reader
+        Self::open_many(&[path.to_string()], options)
+    }
+
+    /// Opens several logs read as one, in the order given; a folder stands for its files in
+    /// name order. Every file must have the same columns.
+    pub fn open_many(paths: &[String], options: &ReadOptions) -> Result<Self> {
+        let mut rest: VecDeque<String> = expand(paths)?.into();
+        let first = rest.pop_front().expect("expand gives at least one file");
+        let opened = open_file(&first, options)?;
+        let mut reader = Self::start(opened, &source::display_name(&first), options)?;
+        reader.label = std::iter::once(first.as_str())
+            .chain(rest.iter().map(String::as_str))
+            .map(source::display_name)
+            .collect::<Vec<_>>()
+            .join(", ");
+        reader.rest = rest;
+        Ok(reader)
     }
 
     /// Reads from any byte source; `file` is the name used in messages.
@@ -169,37 +214,21 @@ impl LogReader {
         bar: Option<ProgressBar>,
         tuning: Tuning,
     ) -> Result<Self> {
-        let mut chunker = Chunker::new(input, options.delimiter, tuning);
-        let first = first_records(&mut chunker).map_err(|e| chunk_error(file, e))?;
-        let Some(first) = first else {
-            return Err(Error::input_hint(
-                Position {
-                    file: file.into(),
-                    ..Default::default()
-                },
-                "the file is empty (or holds only blank lines)",
-                "a log starts with a header row such as: episode,step,reward,terminated,truncated,score_0",
-            ));
-        };
-        // The header is the first record of the first block; the data start past any line
-        // breaks after it.
-        let (header, mut data_start) = rows::first_record(&first.bytes, options.delimiter);
-        while data_start < first.bytes.len() && matches!(first.bytes[data_start], b'\r' | b'\n') {
-            data_start += 1;
-        }
-        let data_line = first.first_line + chunks::line_breaks(&first.bytes[..data_start]);
-        let schema = Schema::resolve(&options.columns, header_names(header, file)?, file)?;
-        let layout = Layout {
-            value: schema.has(Role::Value),
-            q: schema.has(Role::Q),
-            logp: schema.has(Role::Logp),
-            score_dim: schema.scores.len(),
-            obs_dim: schema.obs.len(),
-            act_dim: schema.act.len(),
-        };
-        let has_end_flags = schema.has(Role::Terminated) || schema.has(Role::Truncated);
+        let mut opened = open_csv(input, file, options, tuning)?;
+        opened.bar = bar;
+        Self::start(opened, file, options)
+    }
+
+    fn start(opened: Opened, file: &str, options: &ReadOptions) -> Result<Self> {
+        let schema = opened.schema;
         let mut warnings = Warnings::default();
-        if !has_end_flags {
+        if !schema.has_end_flags() {
+            if schema.env.is_some() {
+                return Err(Error::usage(format!(
+                    "{file}: --env-col needs an end-flag column (terminated, truncated or \
+                     done) to split each environment's rows into episodes"
+                )));
+            }
             warnings.add(
                 "no_end_flags",
                 "the log has neither a terminated nor a truncated column: each episode ends at \
@@ -207,37 +236,36 @@ impl LogReader {
                 None,
             );
         }
-        let parser = Arc::new(RowParser::new(&schema, file, options.delimiter));
-        let mut pending = VecDeque::new();
-        let mut parsed = parser.parse(&first.bytes[data_start..], data_line);
-        parsed.tail = first.tail;
-        pending.push_back(parsed);
-        chunker.recycle(first.bytes);
-        let feed = if tuning.threaded {
-            Feed::Threaded(Pipeline::start(chunker, Arc::clone(&parser)))
-        } else {
-            Feed::Inline(chunker, Vec::new())
+        let shape = Shape {
+            layout: Layout {
+                value: schema.has(Role::Value),
+                q: schema.has(Role::Q),
+                logp: schema.has(Role::Logp),
+                score_dim: schema.scores.len(),
+                obs_dim: schema.obs.len(),
+                act_dim: schema.act.len(),
+            },
+            has_end_flags: schema.has_end_flags(),
+            vector_env: schema.env.is_some(),
+            id_col: schema.id_column(),
+            step_col: schema.column(Role::Step),
         };
+        let mut assembler = Assembler::new(shape, options.budget, warnings);
+        assembler.next_file(file, opened.source.unit());
         Ok(LogReader {
-            feed: Some(feed),
-            parser,
+            source: opened.source,
             file: file.to_string(),
+            label: file.to_string(),
+            rest: VecDeque::new(),
+            options: options.clone(),
             schema,
-            layout,
-            has_end_flags,
-            pending,
+            pending: opened.first.into_iter().collect(),
             cursor: 0,
-            open: HashMap::new(),
-            ended: HashMap::new(),
-            leftovers: Vec::new(),
-            input_done: false,
+            assembler,
             at_eof: false,
-            compressed: false,
+            compressed: opened.compressed,
             rows: 0,
-            held: 0,
-            budget: options.budget,
-            warnings,
-            bar,
+            bar: opened.bar,
         })
     }
 
@@ -245,8 +273,10 @@ impl LogReader {
         &self.schema
     }
 
+    /// The log's name for reports: its file, or its files joined with commas.
+    #[allow(clippy::misnamed_getters)]
     pub fn file(&self) -> &str {
-        &self.file
+        &self.label
     }
 
     /// Data rows read so far.
@@ -255,18 +285,20 @@ impl LogReader {
     }
 
     pub fn warnings(&self) -> &Warnings {
-        &self.warnings
+        &self.assembler.warnings
     }
 
     /// The next finished episode, in the order their end rows appear; episodes still open at
-    /// the end of the file follow, in the order they started.
+    /// the end of the log follow, in the order they started.
     pub fn next_episode(&mut self) -> Result<Option<Episode>> {
         let next = self.next_inner();
         match next {
             Err(e @ Error::Input(_)) if self.compressed => {
-                let damage = self
-                    .feed
-                    .take()
+                let feed = match &mut self.source {
+                    Source::Csv { feed, .. } => feed.take(),
+                    Source::Columnar(..) => None,
+                };
+                let damage = feed
                     .and_then(Feed::stop)
                     .and_then(|mut chunker| stream_damage(&self.file, chunker.source()));
                 Err(damage.unwrap_or(e))
@@ -278,17 +310,9 @@ impl LogReader {
     fn next_inner(&mut self) -> Result<Option<Episode>> {
         while !self.at_eof {
             let Some(block) = self.pending.front() else {
-                let next = match &mut self.feed {
-                    Some(f) if !self.input_done => f.next(&self.parser),
-                    _ => None,
-                };
-                match next {
-                    Some(Item::Block(b)) => self.pending.push_back(b),
-                    Some(Item::ReadError(e)) => return Err(chunk_error(&self.file, e)),
-                    None => {
-                        self.input_done = true;
-                        self.finish()?;
-                    }
+                match self.source.next(&self.file) {
+                    Some(b) => self.pending.push_back(b?),
+                    None => self.next_file()?,
                 }
                 continue;
             };
@@ -299,100 +323,48 @@ impl LogReader {
                     return Err(e);
                 }
                 self.check_tail(&block)?;
-                if let Some(f) = &mut self.feed {
-                    f.recycle(block);
-                }
+                self.source.recycle(block);
                 continue;
             }
             let i = self.cursor;
             self.cursor += 1;
             self.rows += 1;
-            let block = self.pending.pop_front().expect("front exists");
-            let done = self.assemble(&block, i);
-            self.pending.push_front(block);
-            if let Some(ep) = done? {
+            let block = self.pending.front().expect("front exists");
+            if let Some(ep) = self.assembler.push(block, i, self.source.loc())? {
                 return Ok(Some(ep));
             }
         }
-        Ok(self.leftovers.pop())
+        Ok(self.assembler.leftover())
     }
 
-    /// Adds row `i` of `block` to its episode; returns the episode if this row ended it.
-    fn assemble(&mut self, block: &Parsed, i: usize) -> Result<Option<Episode>> {
-        let row: &Row = &block.rows[i];
-        let id = block.id(row);
-        let line = row.line;
-        // Most rows continue an open episode: look it up without moving it or allocating. An
-        // open id cannot have ended (ending removes it from `open`, and reopening passes the
-        // check below), so only a row starting an episode looks in `ended`.
-        if !self.open.contains_key(id) {
-            if let Some(end_line) = self.ended.get(&id_key(id)) {
-                let id_col = self.schema.column(Role::Episode).expect("required");
-                return Err(Error::input_hint(
-                    self.parser.at(line, Some(id_col)),
-                    format!(
-                        "episode '{}' already ended at line {end_line}",
-                        fields::shown(id)
-                    ),
-                    "each episode id must be unique; an id reused after its end row, or an end \
-                     flag set on a row before the episode's last one, causes this",
-                ));
-            }
-            let episode = Episode::from_raw_id(id, line, &self.layout);
-            self.open.insert(
-                id.to_vec(),
-                Open {
-                    episode,
-                    last_step: None,
-                },
-            );
+    /// At the end of a file: the next one (with the same columns), or the end of the log.
+    fn next_file(&mut self) -> Result<()> {
+        if let Some(bar) = &self.bar {
+            bar.finish_and_clear();
         }
-        let open_count = self.open.len();
-        let open = self.open.get_mut(id).expect("inserted above");
-        check_step(&self.parser, &self.schema, open, row)?;
-        open.last_step = row.step;
-        let ep = &mut open.episode;
-        let w = self.parser.vector_width();
-        // Each step holds its vector fields, up to four scalars and its line number.
-        self.held += 8 * (w as u64 + 5);
-        if self.held > self.budget.bytes {
+        let Some(path) = self.rest.pop_front() else {
+            return self.finish();
+        };
+        let name = source::display_name(&path);
+        let opened = open_file(&path, &self.options)?;
+        if opened.schema != self.schema {
             return Err(Error::input_hint(
-                self.parser.at(line, None),
-                format!(
-                    "open episodes hold more than the memory budget of {} MB ({} episodes open; \
-                     '{}' has {} steps so far)",
-                    self.budget.mb(),
-                    open_count,
-                    fields::shown(ep.id.as_bytes()),
-                    ep.rewards.len() + 1
-                ),
-                "check that every episode's last row sets terminated or truncated, or raise \
-                 --max-memory",
+                Position {
+                    file: name,
+                    line: Some(1),
+                    column: None,
+                },
+                format!("the columns differ from those of {}", self.file),
+                "files read as one log must have the same columns in the same order",
             ));
         }
-        push_step(ep, row, &block.vectors[i * w..(i + 1) * w]);
-        ep.lines.push(line);
-        if row.terminated || row.truncated {
-            ep.end = if row.terminated {
-                End::Terminated
-            } else {
-                if row.next_value.is_none() {
-                    warn_no_bootstrap(&mut self.warnings, &ep.id, line);
-                }
-                End::Truncated {
-                    bootstrap: row.next_value,
-                }
-            };
-            let done = self.open.remove(id).expect("open above").episode;
-            self.held -= 8 * (w as u64 + 5) * done.len() as u64;
-            self.ended.insert(id_key(id), line);
-            return Ok(Some(done));
-        }
-        // Remember the last row's bootstrap in case the log ends mid-episode.
-        ep.end = End::Truncated {
-            bootstrap: row.next_value,
-        };
-        Ok(None)
+        self.assembler.next_file(&name, opened.source.unit());
+        self.source = opened.source;
+        self.pending.extend(opened.first);
+        self.compressed = opened.compressed;
+        self.bar = opened.bar;
+        self.file = name;
+        Ok(())
     }
 
     /// A file whose last row has no line break after it may have been cut mid-row (a number
@@ -406,14 +378,14 @@ impl LogReader {
         let cut = match block.tail {
             Tail::Complete => return Ok(()),
             Tail::InsideQuotes => "the file ends inside a quoted field",
-            Tail::NoLineBreak if self.open.contains_key(block.id(last)) => {
+            Tail::NoLineBreak if self.assembler.is_open(block.id(last)) => {
                 "the file ends inside a row (no line break after it, and its episode is not \
                  ended by a terminated or truncated flag)"
             }
             Tail::NoLineBreak => return Ok(()),
         };
         Err(Error::input_hint(
-            self.parser.at(last.line, None),
+            self.source.loc().at(last.line, None),
             format!("{cut}: the log looks cut short"),
             "check that the file was copied or written completely; if it is complete, end it \
              with a line break",
@@ -422,9 +394,6 @@ impl LogReader {
 
     fn finish(&mut self) -> Result<()> {
         self.at_eof = true;
-        if let Some(bar) = &self.bar {
-            bar.finish_and_clear();
-        }
         if self.rows == 0 {
             return Err(Error::input(
                 Position {
@@ -435,103 +404,9 @@ impl LogReader {
                 "the log has a header row but no data rows",
             ));
         }
-        let mut open: Vec<Open> = self.open.drain().map(|(_, o)| o).collect();
-        // Reverse order so that popping yields them in the order they started.
-        open.sort_by_key(|o| std::cmp::Reverse(o.episode.first_line));
-        for mut o in open {
-            if self.has_end_flags {
-                let bootstrap = match o.episode.end {
-                    End::Truncated { bootstrap } => bootstrap,
-                    End::Terminated => None,
-                };
-                self.warnings.add(
-                    "open_at_end_of_log",
-                    "episode still open at the end of the log: taken as truncated",
-                    Some(format!(
-                        "episode '{}', line {}",
-                        fields::shown(o.episode.id.as_bytes()),
-                        o.episode.first_line
-                    )),
-                );
-                if bootstrap.is_none() {
-                    warn_no_bootstrap(&mut self.warnings, &o.episode.id, o.episode.first_line);
-                }
-                o.episode.end = End::Truncated { bootstrap };
-            } else {
-                o.episode.end = End::Terminated;
-            }
-            self.leftovers.push(o.episode);
-        }
+        self.assembler.finish(self.source.loc());
         Ok(())
     }
-}
-
-/// Appends a row's values (`v`: its scores, obs and act) to its episode.
-fn push_step(ep: &mut Episode, row: &Row, v: &[f64]) {
-    let (d, o) = (ep.score_dim, ep.obs_dim);
-    ep.scores.extend_from_slice(&v[..d]);
-    ep.obs.extend_from_slice(&v[d..d + o]);
-    ep.act.extend_from_slice(&v[d + o..]);
-    ep.rewards.push(row.reward);
-    for (x, xs) in [
-        (row.value, ep.values.as_mut()),
-        (row.q, ep.q.as_mut()),
-        (row.logp, ep.logp.as_mut()),
-    ] {
-        if let (Some(x), Some(xs)) = (x, xs) {
-            xs.push(x);
-        }
-    }
-}
-
-/// A row's step must be the previous step of its episode plus 1. checked_add: the step after
-/// i64::MAX does not exist (it must not wrap to i64::MIN).
-fn check_step(parser: &RowParser, schema: &Schema, open: &Open, row: &Row) -> Result<()> {
-    let (Some(step), Some(last)) = (row.step, open.last_step) else {
-        return Ok(());
-    };
-    if last.checked_add(1) == Some(step) {
-        return Ok(());
-    }
-    let c = schema.column(Role::Step).expect("step present");
-    let what = if step == last {
-        "repeats"
-    } else {
-        "does not follow"
-    };
-    Err(Error::input_hint(
-        parser.at(row.line, Some(c)),
-        format!(
-            "step {step} of episode '{}' {what} the previous step {last}",
-            fields::shown(open.episode.id.as_bytes())
-        ),
-        "steps must increase by exactly 1 within an episode",
-    ))
-}
-
-/// A 128-bit digest of an episode id: two SipHash-1-3 digests with different fixed keys
-/// (`DefaultHasher::new` is the same in every run, so this is deterministic). Two distinct ids
-/// among n collide with probability about n^2 / 2^129 (1e-25 for ten million episodes).
-fn id_key(id: &[u8]) -> u128 {
-    use std::hash::{DefaultHasher, Hasher};
-    let mut a = DefaultHasher::new();
-    a.write(id);
-    let mut b = DefaultHasher::new();
-    b.write(b"gradaudit id key");
-    b.write(id);
-    (u128::from(a.finish()) << 64) | u128::from(b.finish())
-}
-
-fn warn_no_bootstrap(warnings: &mut Warnings, id: &str, line: u64) {
-    warnings.add(
-        "truncated_without_bootstrap",
-        "truncated episode without a bootstrap value (next_value on its last row): its tail \
-         value is taken as 0, which biases value-based estimators",
-        Some(format!(
-            "episode '{}', line {line}",
-            fields::shown(id.as_bytes())
-        )),
-    );
 }
 
 impl Iterator for LogReader {
@@ -539,6 +414,124 @@ impl Iterator for LogReader {
     fn next(&mut self) -> Option<Self::Item> {
         self.next_episode().transpose()
     }
+}
+
+/// The files of the paths given: a folder stands for its files (not hidden ones) in name
+/// order.
+fn expand(paths: &[String]) -> Result<Vec<String>> {
+    let mut out = Vec::new();
+    for p in paths {
+        let path = std::path::Path::new(p);
+        if p == "-" || !path.is_dir() {
+            out.push(p.clone());
+            continue;
+        }
+        let mut names: Vec<String> = std::fs::read_dir(path)
+            .map_err(|e| Error::io(p, e))?
+            .filter_map(|e| e.ok())
+            .filter(|e| e.file_type().is_ok_and(|t| t.is_file()))
+            .filter(|e| !e.file_name().to_string_lossy().starts_with('.'))
+            .map(|e| e.path().to_string_lossy().into_owned())
+            .collect();
+        names.sort();
+        if names.is_empty() {
+            return Err(Error::usage(format!("{p}: the folder holds no files")));
+        }
+        out.extend(names);
+    }
+    if out.is_empty() {
+        return Err(Error::usage("no log given"));
+    }
+    Ok(out)
+}
+
+/// Opens one file of a log: columnar by its magic bytes, else CSV (gzip-compressed or not).
+fn open_file(path: &str, options: &ReadOptions) -> Result<Opened> {
+    let name = source::display_name(path);
+    if let Some(kind) = source::Columnar::of_path(path) {
+        let (batches, schema) = columnar::open(path, &name, kind, &options.columns)?;
+        return Ok(Opened {
+            source: Source::Columnar(Box::new(batches), None),
+            schema,
+            first: None,
+            compressed: false,
+            bar: None,
+        });
+    }
+    let src = source::open(path, options.progress)?;
+    let compressed = src.compressed;
+    let opened = open_csv(
+        src.reader,
+        &name,
+        options,
+        Tuning::for_budget(options.budget),
+    );
+    if compressed {
+        // Damaged deflate data can decode into plausible garbage; gzip's checksum is only
+        // read at the end of the stream, so on any input error look there first.
+        if let Err(e) = opened {
+            // The failed reader consumed the stream; decode a fresh copy (not possible for
+            // stdin, which keeps the original error).
+            let damage = (path != "-")
+                .then(|| source::open(path, Progress::Hidden).ok())
+                .flatten()
+                .and_then(|mut fresh| stream_damage(&name, &mut fresh.reader));
+            return Err(damage.unwrap_or(e));
+        }
+    }
+    opened.map(|mut o| {
+        o.compressed = compressed;
+        o.bar = src.bar;
+        o
+    })
+}
+
+/// Reads a CSV log's header and first block, and starts its block feed.
+fn open_csv(
+    input: Box<dyn Read + Send>,
+    file: &str,
+    options: &ReadOptions,
+    tuning: Tuning,
+) -> Result<Opened> {
+    let mut chunker = Chunker::new(input, options.delimiter, tuning);
+    let first = first_records(&mut chunker).map_err(|e| chunk_error(file, e))?;
+    let Some(first) = first else {
+        return Err(Error::input_hint(
+            Position {
+                file: file.into(),
+                ..Default::default()
+            },
+            "the file is empty (or holds only blank lines)",
+            "a log starts with a header row such as: episode,step,reward,terminated,truncated,score_0",
+        ));
+    };
+    // The header is the first record of the first block; the data start past any line
+    // breaks after it.
+    let (header, mut data_start) = rows::first_record(&first.bytes, options.delimiter);
+    while data_start < first.bytes.len() && matches!(first.bytes[data_start], b'\r' | b'\n') {
+        data_start += 1;
+    }
+    let data_line = first.first_line + chunks::line_breaks(&first.bytes[..data_start]);
+    let schema = Schema::resolve(&options.columns, header_names(header, file)?, file)?;
+    let parser = Arc::new(RowParser::new(&schema, file, options.delimiter));
+    let mut parsed = parser.parse(&first.bytes[data_start..], data_line);
+    parsed.tail = first.tail;
+    chunker.recycle(first.bytes);
+    let feed = if tuning.threaded {
+        Feed::Threaded(Pipeline::start(chunker, Arc::clone(&parser)))
+    } else {
+        Feed::Inline(chunker, Vec::new())
+    };
+    Ok(Opened {
+        source: Source::Csv {
+            feed: Some(feed),
+            parser,
+        },
+        schema,
+        first: Some(parsed),
+        compressed: false,
+        bar: None,
+    })
 }
 
 /// Reads the rest of a compressed stream; if the decoder reports damage, that is the error to

@@ -222,11 +222,22 @@ pub struct RowParser {
     step: Option<usize>,
     terminated: Option<usize>,
     truncated: Option<usize>,
+    done: Option<usize>,
     value: Option<usize>,
     next_value: Option<usize>,
     q: Option<usize>,
     logp: Option<usize>,
     vectors: Vec<usize>,
+}
+
+impl super::assemble::Locate for RowParser {
+    fn at(&self, line: u64, col: Option<usize>) -> Position {
+        RowParser::at(self, line, col)
+    }
+
+    fn place(&self, line: u64) -> String {
+        format!("line {line}")
+    }
 }
 
 impl RowParser {
@@ -238,11 +249,12 @@ impl RowParser {
             file: file.to_string(),
             headers: schema.headers.clone(),
             delimiter,
-            episode: schema.column(Role::Episode).expect("required role"),
+            episode: schema.id_column(),
             reward: schema.column(Role::Reward).expect("required role"),
             step: schema.column(Role::Step),
             terminated: schema.column(Role::Terminated),
             truncated: schema.column(Role::Truncated),
+            done: schema.column(Role::Done),
             value: schema.column(Role::Value),
             next_value: schema.column(Role::NextValue),
             q: schema.column(Role::Q),
@@ -383,18 +395,24 @@ impl RowParser {
                 ),
             ));
         }
+        // Fields are checked in the order of this list (the first bad one is reported).
+        let reward = num(self.reward)?;
+        let step = match self.step {
+            Some(c) => {
+                Some(fields::integer(rec.field(c)).map_err(|p| self.field_error(rec, line, c, p))?)
+            }
+            None => None,
+        };
+        let (terminated, truncated) = (flag(self.terminated)?, flag(self.truncated)?);
+        let done = flag(self.done)?;
         let row = Row {
             line,
             id: (out.ids.len(), id.len()),
-            reward: num(self.reward)?,
-            step: match self.step {
-                Some(c) => Some(
-                    fields::integer(rec.field(c)).map_err(|p| self.field_error(rec, line, c, p))?,
-                ),
-                None => None,
-            },
-            terminated: flag(self.terminated)?,
-            truncated: flag(self.truncated)?,
+            reward,
+            step,
+            // The done convention: terminated = done and not truncated.
+            terminated: terminated || (done && !truncated),
+            truncated,
             value: opt_num(self.value)?,
             q: opt_num(self.q)?,
             logp: opt_num(self.logp)?,

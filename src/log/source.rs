@@ -78,3 +78,53 @@ pub fn decompressed(raw: Box<dyn Read + Send>) -> io::Result<(Box<dyn Read + Sen
     };
     Ok((reader, compressed))
 }
+
+/// Columnar log formats, detected by their magic bytes (like gzip, whatever the file is
+/// called) and read through [`super::columnar`] rather than as bytes.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Columnar {
+    Parquet,
+    /// Arrow IPC file format (`ARROW1` magic; also Feather version 2).
+    ArrowFile,
+    /// Arrow IPC stream format (a message continuation marker first).
+    ArrowStream,
+}
+
+impl Columnar {
+    /// What the first bytes of a file say it is, if a columnar format.
+    pub fn from_magic(head: &[u8]) -> Option<Columnar> {
+        if head.starts_with(b"PAR1") {
+            Some(Columnar::Parquet)
+        } else if head.starts_with(b"ARROW1") {
+            Some(Columnar::ArrowFile)
+        } else if head.starts_with(&[0xff, 0xff, 0xff, 0xff]) {
+            Some(Columnar::ArrowStream)
+        } else {
+            None
+        }
+    }
+
+    /// The columnar format of the file at `path` (never stdin, which is read as CSV).
+    pub fn of_path(path: &str) -> Option<Columnar> {
+        if path == "-" {
+            return None;
+        }
+        let mut head = [0u8; 8];
+        let mut f = File::open(path).ok()?;
+        let mut n = 0;
+        while n < head.len() {
+            match f.read(&mut head[n..]) {
+                Ok(0) | Err(_) => break,
+                Ok(k) => n += k,
+            }
+        }
+        Columnar::from_magic(&head[..n])
+    }
+
+    pub fn name(self) -> &'static str {
+        match self {
+            Columnar::Parquet => "Parquet",
+            Columnar::ArrowFile | Columnar::ArrowStream => "Arrow IPC",
+        }
+    }
+}

@@ -184,6 +184,7 @@ mod tests {
             act_dim: 1,
             act: acts.to_vec(),
             end: End::Terminated,
+            env: None,
         }
     }
 

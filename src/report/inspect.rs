@@ -46,6 +46,8 @@ pub fn render_text(r: &InspectReport) -> String {
                 a.headers[a.headers.len() - 1],
                 a.headers.len()
             )
+        } else if let Some(w) = a.list_width {
+            format!("{} (a list of {w})", a.headers.join(", "))
         } else {
             a.headers.join(", ")
         };
@@ -54,6 +56,10 @@ pub fn render_text(r: &InspectReport) -> String {
     if !r.unused_columns.is_empty() {
         out.push_str(&format!("  (ignored)   {}\n", r.unused_columns.join(", ")));
     }
+    out.push_str(&format!(
+        "end flags        {}: {}\n",
+        r.end_flags.convention, r.end_flags.reason
+    ));
     if let Some(line) = super::table::critic_line(&r.critic) {
         out.push_str(&format!("{line} (returns at gamma {})\n", r.gamma));
     }

@@ -235,14 +235,16 @@ fn fit_value_is_bit_identical_under_interleaving() {
 #[test]
 fn inspect_returns_beyond_the_budget_are_refused() {
     // 140,000 one-step episodes: their returns (8 bytes each, for the median) exceed 1 MB.
+    // Written as a vector-environment layout, whose derived ids need no record of finished
+    // ids (which would exceed the budget first: see reader_finished_ids_count_against_the_budget).
     let dir = Dir::new("inspect-budget");
-    let mut text = String::from("episode,reward,terminated\n");
+    let mut text = String::from("env,reward,terminated\n");
     for i in 0..140_000 {
-        writeln!(text, "{i},{},1", i % 3).unwrap();
+        writeln!(text, "{},{},1", i % 8, i % 3).unwrap();
     }
     let p = dir.write("many.csv", text.as_bytes());
     refused(
-        &["inspect", &p, "--max-memory", "1"],
+        &["inspect", &p, "--env-col", "env", "--max-memory", "1"],
         &[
             "many.csv",
             "episodes (kept for the exact median)",
@@ -250,6 +252,6 @@ fn inspect_returns_beyond_the_budget_are_refused() {
             "raise --max-memory",
         ],
     );
-    let (code, _, err) = run(&["inspect", &p, "--max-memory", "2"]);
+    let (code, _, err) = run(&["inspect", &p, "--env-col", "env", "--max-memory", "2"]);
     assert_eq!(code, 0, "{err}");
 }

@@ -18,4 +18,5 @@ mod projection;
 mod report_edges;
 mod report_html;
 mod snapshots;
+mod stacks;
 mod sweep;
