@@ -139,6 +139,8 @@ pub struct LogArgs {
 pub enum InspectFormat {
     Table,
     Json,
+    /// One self-contained HTML page
+    Html,
 }
 
 #[derive(Debug, Args)]
@@ -169,6 +171,8 @@ pub enum AuditFormat {
     Json,
     Csv,
     Markdown,
+    /// One self-contained HTML page (figures inline, no network access)
+    Html,
 }
 
 /// What an audit computes (shared by `audit` and `gate`).
@@ -294,6 +298,11 @@ pub struct ReportOutput {
     /// variance; sweep, bias^2, variance and MSE against the swept parameter
     #[arg(long, value_name = "FILE.svg")]
     pub plot: Option<String>,
+
+    /// Table format: every column in one table, wider than 100 columns (by default the
+    /// audit's interval ends go in a second block, and the sweep leaves out the estimator names)
+    #[arg(long)]
+    pub wide: bool,
 }
 
 /// The checked outputs of `audit` or `sweep`: the report and the optional plot.
@@ -306,6 +315,9 @@ struct ReportSlots {
 impl ReportOutput {
     /// Checks every output path before any reading; none may be one of `inputs`.
     fn check(&self, inputs: &[&str]) -> Result<ReportSlots> {
+        if self.wide && !matches!(self.format, AuditFormat::Table) {
+            return Err(Error::usage("--wide applies to --format table only"));
+        }
         let mut outputs = output::Outputs::new(inputs);
         let out = outputs.add("--out", &self.out)?;
         let plot = self
@@ -478,6 +490,8 @@ pub enum GateFormat {
     Text,
     Markdown,
     Json,
+    /// One self-contained HTML page: the checks, then the audit they were checked on
+    Html,
 }
 
 #[derive(Debug, Args)]
@@ -621,11 +635,20 @@ impl AuditOptions {
 
 impl AuditArgs {
     fn format(&self) -> Format {
-        match self.output.format {
+        self.output.report_format()
+    }
+}
+
+impl ReportOutput {
+    /// The report format these options ask for (audit and merge share it).
+    fn report_format(&self) -> Format {
+        match self.format {
+            AuditFormat::Table if self.wide => Format::WideTable,
             AuditFormat::Table => Format::Table,
             AuditFormat::Json => Format::Json,
             AuditFormat::Csv => Format::Csv,
             AuditFormat::Markdown => Format::Markdown,
+            AuditFormat::Html => Format::Html,
         }
     }
 }
@@ -665,6 +688,7 @@ fn run_inspect(a: InspectArgs) -> Result<()> {
             t
         }
         InspectFormat::Json => report::inspect::render_json(&report),
+        InspectFormat::Html => report::html::inspect(&report),
     };
     output::write("-", &text)?;
     Ok(())
@@ -726,10 +750,11 @@ fn run_sweep(s: SweepArgs) -> Result<u8> {
     cfg.audit.critic = s.audit.fit_critic(&s.log, cfg.audit.gamma)?;
     let report = sweep::run(s.log.open()?, &cfg)?;
     let text = match s.output.format {
-        AuditFormat::Table => report::sweep::render_table(&report),
+        AuditFormat::Table => report::sweep::render_table_with(&report, s.output.wide),
         AuditFormat::Json => report::sweep::render_json(&report),
         AuditFormat::Csv => report::sweep::render_csv(&report),
         AuditFormat::Markdown => report::sweep::render_markdown(&report),
+        AuditFormat::Html => report::html::sweep(&report),
     };
     slots.write(text, || report::svg::sweep_plot(&report))?;
     Ok(exit::OK)
@@ -761,6 +786,7 @@ fn run_gate(g: GateArgs) -> Result<u8> {
         GateFormat::Text => report::gate::render_text(&result),
         GateFormat::Markdown => report::gate::render_markdown(&result),
         GateFormat::Json => report::gate::render_json(&result),
+        GateFormat::Html => report::html::gate(&result),
     };
     let mut texts = vec![(out, text)];
     if let Some(j) = junit {
@@ -911,13 +937,7 @@ fn run_merge(m: MergeArgs) -> Result<()> {
         });
     }
     let report = crate::shard::merged_report(shards)?;
-    let format = match m.output.format {
-        AuditFormat::Table => Format::Table,
-        AuditFormat::Json => Format::Json,
-        AuditFormat::Csv => Format::Csv,
-        AuditFormat::Markdown => Format::Markdown,
-    };
-    slots.write(report::render(&report, format), || {
+    slots.write(report::render(&report, m.output.report_format()), || {
         report::svg::audit_bars(&report)
     })
 }

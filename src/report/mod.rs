@@ -11,7 +11,10 @@ pub mod columns;
 pub mod crosscheck;
 pub mod csv;
 pub mod gate;
+pub mod groups;
+pub mod html;
 pub mod inspect;
+pub mod layout;
 pub mod markdown;
 pub mod svg;
 pub mod sweep;
@@ -28,6 +31,10 @@ pub enum Format {
     Json,
     Csv,
     Markdown,
+    /// The terminal table with every column in one table (`--wide`).
+    WideTable,
+    /// One self-contained HTML page (report/html.rs).
+    Html,
 }
 
 /// Identifies the program and the wire schema.
@@ -391,6 +398,8 @@ pub fn render(report: &AuditReport, format: Format) -> String {
         }
         Format::Csv => csv::render(report),
         Format::Markdown => markdown::render(report),
+        Format::WideTable => table::render_with(report, true),
+        Format::Html => html::audit(report),
     }
 }
 
