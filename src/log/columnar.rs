@@ -75,7 +75,7 @@ impl Locate for Locator {
 }
 
 /// Where each role's values are: batch column indices (the projected order) and, for the
-/// vector roles, one source per element in score, obs, act order.
+/// vector roles, one source per element in score, obs, act order, then the logged columns.
 struct Plan {
     id: usize,
     reward: usize,
