@@ -839,6 +839,8 @@ pub fn report(
 
 pub mod streamed;
 
+pub mod calibration;
+
 #[cfg(test)]
 mod tests;
 
