@@ -28,7 +28,7 @@ use serde::Serialize;
 pub mod exact;
 
 /// How to fit.
-#[derive(Debug, Clone, Copy, PartialEq)]
+#[derive(Debug, Clone, PartialEq)]
 pub struct FitConfig {
     pub folds: usize,
     /// Ridge penalty as a fraction of the mean diagonal of X^T X.
@@ -205,7 +205,7 @@ impl FoldSums {
 
 /// Refuses fold counts and feature counts whose sums and solves exceed the budget, before
 /// allocating them (a count like 2^64 - 1 would otherwise overflow a capacity).
-fn check_size(folds: usize, p: usize, budget: crate::limits::Budget) -> Result<()> {
+fn check_size(folds: usize, p: usize, budget: &crate::limits::Budget) -> Result<()> {
     use crate::limits::bytes;
     let entries = bytes(p as u128, p as u128 + 1) / 2 + p as u128;
     // The fold sums, their total, one complement, the fitted weights and three p x p matrices.
@@ -227,7 +227,7 @@ pub fn fit(mut reader: LogReader, cfg: &FitConfig) -> Result<Critic> {
     let obs_dim = reader.schema().obs.len();
     let p = 2 * obs_dim + 3;
     let folds = cfg.folds.max(1);
-    check_size(folds, p, cfg.budget)?;
+    check_size(folds, p, &cfg.budget)?;
     let mut sums = vec![FoldSums::new(p); folds];
     let (mut g, mut phi) = (Vec::new(), Vec::new());
     let (mut xtx, mut xty) = (vec![0.0; p * (p + 1) / 2], vec![0.0; p]);

@@ -136,7 +136,8 @@ pub fn run(
         Vec::new(),
     );
     let mut lengths: BTreeMap<u64, u64> = BTreeMap::new();
-    let mut returns = Vec::new();
+    let mut returns: Vec<f64> = Vec::new();
+    let (mut held, mut returns_len) = (budget.charge(crate::limits::Holder::Summaries), 0);
     let (mut terminated, mut truncated, mut boot, mut steps) = (0, 0, 0, 0u64);
     while let Some(mut ep) = reader.next_episode()? {
         recorded.push_episode(&ep, gamma, &mut buf);
@@ -146,22 +147,25 @@ pub fn run(
         }
         *lengths.entry(ep.len() as u64).or_insert(0) += 1;
         steps += ep.len() as u64;
-        // The returns (for the exact median) and the length histogram (a BTreeMap node of
-        // about 16 bytes per distinct length, plus overhead).
-        let need = crate::limits::bytes(returns.len() as u128 + 1, 8)
-            + crate::limits::bytes(lengths.len() as u128, 64);
-        budget.check(
-            need,
+        // The returns (for the exact median; their vector's capacity, as it grows) and the
+        // length histogram (a BTreeMap node of about 16 bytes per distinct length, plus
+        // overhead), on the ledger the reader charges too.
+        let histogram = 64 * lengths.len() as u64;
+        held.reserve(
+            &mut returns,
+            1,
+            histogram,
             || {
                 format!(
                     "{}: the returns of {} episodes (kept for the exact median)",
                     reader.file(),
-                    returns.len() + 1
+                    returns_len + 1
                 )
             },
             "raise --max-memory",
         )?;
         returns.push(ep.total_reward());
+        returns_len = returns.len();
         match ep.end {
             End::Terminated => terminated += 1,
             End::Truncated { bootstrap } => {

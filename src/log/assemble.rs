@@ -18,7 +18,7 @@ use super::fields;
 use super::rows::{Parsed, Row};
 use crate::episode::{End, Episode, Layout};
 use crate::error::{Error, Position, Result};
-use crate::limits::Budget;
+use crate::limits::{Budget, Charge, Holder};
 use crate::warnings::Warnings;
 use std::collections::HashMap;
 
@@ -55,18 +55,19 @@ pub struct Assembler {
     shape: Shape,
     open: HashMap<Vec<u8>, Open>,
     /// 128-bit digests of finished episodes' ids ([`id_key`]) with the record that ended each
-    /// and its file, to detect a reused id: about 33 bytes per finished episode, counted
-    /// against the budget.
+    /// and its file, to detect a reused id: about 33 bytes per bucket, charged to the
+    /// budget's ledger (`ended_charge`).
     ended: HashMap<u128, (u64, u32)>,
     /// Vector-environment layout: the next run number of each environment.
     runs: HashMap<Vec<u8>, u64>,
     /// Files read so far (the last is the current one) and their record word ("line", "row").
     files: Vec<(String, &'static str)>,
     leftovers: Vec<Episode>,
-    /// Approximate bytes held by open episodes and by `ended`, against `budget`.
+    /// Approximate bytes held by open episodes (`held`, charged as `open_charge`) and by
+    /// `ended`, on the budget's one ledger with the reader's blocks and what the caller keeps.
     held: u64,
-    ended_bytes: u64,
-    budget: Budget,
+    open_charge: Charge,
+    ended_charge: Charge,
     pub warnings: Warnings,
     ends: EndCounts,
 }
@@ -107,8 +108,8 @@ impl Assembler {
             files: Vec::new(),
             leftovers: Vec::new(),
             held: 0,
-            ended_bytes: 0,
-            budget,
+            open_charge: budget.charge(Holder::OpenEpisodes),
+            ended_charge: budget.charge(Holder::FinishedIds),
             warnings,
             ends: EndCounts::default(),
         }
@@ -148,16 +149,29 @@ impl Assembler {
         let open = self.open.get_mut(key).expect("opened above");
         check_step(self.shape.step_col, open, row, loc)?;
         open.last_step = row.step;
-        self.held += step_bytes;
-        if self.held + self.ended_bytes > self.budget.bytes {
-            return Err(over_budget(
-                self.budget,
-                open_count,
-                &open.episode,
-                row,
-                loc,
-            ));
-        }
+        // A new episode also holds its id, its entry in the table of open ones and its
+        // vectors' headers.
+        let fixed = if open.episode.rewards.is_empty() {
+            OPEN_BYTES + key.len() as u64
+        } else {
+            0
+        };
+        self.held += step_bytes + fixed;
+        let ep = &open.episode;
+        self.open_charge
+            .set(
+                self.held,
+                || {
+                    format!(
+                        "open episodes ({open_count} open; '{}' has {} steps so far)",
+                        fields::shown(ep.id.as_bytes()),
+                        ep.rewards.len() + 1
+                    )
+                },
+                "check that every episode's last row sets terminated or truncated, or raise \
+                 --max-memory",
+            )
+            .map_err(|e| Error::input(loc.at(row.line, None), e.to_string()))?;
         let ep = &mut open.episode;
         push_step(ep, row, &block.vectors[i * w..(i + 1) * w]);
         ep.lines.push(row.line);
@@ -180,7 +194,8 @@ impl Assembler {
             }
         };
         let done = self.open.remove(key).expect("open above").episode;
-        self.held -= step_bytes * done.len() as u64;
+        self.held -= step_bytes * done.len() as u64 + OPEN_BYTES + key.len() as u64;
+        self.open_charge.force(self.held);
         if self.shape.vector_env {
             *self.runs.entry(key.to_vec()).or_insert(0) += 1;
         } else {
@@ -248,28 +263,28 @@ impl Assembler {
         )
     }
 
-    /// Records a finished id, checking the table's growth against the budget first.
+    /// Records a finished id, charging the table's growth to the ledger first.
     fn remember_end(&mut self, key: &[u8], line: u64, loc: &dyn Locate) -> Result<()> {
         if self.ended.len() == self.ended.capacity() {
             // Growing allocates the doubled table while the old one is still held.
             let now = table_bytes(self.ended.capacity());
             let grown = table_bytes(self.ended.capacity().max(3) * 2);
-            if self.held + now + grown > self.budget.bytes {
-                return Err(Error::input_hint(
-                    loc.at(line, None),
-                    format!(
-                        "the ids of {} finished episodes (kept to detect a reused id, about 33 \
-                         bytes each) and the open episodes need more than the memory budget of \
-                         {} MB",
-                        self.ended.len() + 1,
-                        self.budget.mb()
-                    ),
+            let n = self.ended.len() + 1;
+            self.ended_charge
+                .set(
+                    now + grown,
+                    || {
+                        format!(
+                            "the ids of {n} finished episodes (kept to detect a reused id, \
+                             about 33 bytes each at the table's growth)"
+                        )
+                    },
                     "raise --max-memory (about 80 bytes per finished episode at the table's \
                      growth), or split the log",
-                ));
-            }
+                )
+                .map_err(|e| Error::input(loc.at(line, None), e.to_string()))?;
             self.ended.reserve(1);
-            self.ended_bytes = table_bytes(self.ended.capacity());
+            self.ended_charge.force(table_bytes(self.ended.capacity()));
         }
         self.ended.insert(id_key(key), (line, self.file_index()));
         Ok(())
@@ -348,20 +363,9 @@ fn table_bytes(capacity: usize) -> u64 {
     buckets * 33
 }
 
-fn over_budget(budget: Budget, open: usize, ep: &Episode, row: &Row, loc: &dyn Locate) -> Error {
-    Error::input_hint(
-        loc.at(row.line, None),
-        format!(
-            "open episodes hold more than the memory budget of {} MB ({open} episodes open; \
-             '{}' has {} steps so far)",
-            budget.mb(),
-            fields::shown(ep.id.as_bytes()),
-            ep.rewards.len() + 1
-        ),
-        "check that every episode's last row sets terminated or truncated, or raise \
-         --max-memory",
-    )
-}
+/// Bytes an open episode holds besides its steps: its entry in the table of open episodes
+/// and the headers of its vectors (its id's bytes are added).
+const OPEN_BYTES: u64 = (std::mem::size_of::<Open>() + std::mem::size_of::<Vec<u8>>() + 16) as u64;
 
 /// Appends a row's values (`v`: its scores, obs, act and logged columns) to its episode.
 fn push_step(ep: &mut Episode, row: &Row, v: &[f64]) {

@@ -72,6 +72,9 @@ impl Feed {
                     let mut parsed = spare.pop().unwrap_or_default();
                     parser.parse_into(&b.bytes, b.first_line, &mut parsed);
                     parsed.tail = b.tail;
+                    if let Some(budget) = c.budget() {
+                        parsed.settle(budget);
+                    }
                     c.recycle(b.bytes);
                     Some(Item::Block(parsed))
                 }
@@ -201,7 +204,7 @@ impl LogReader {
         options: &ReadOptions,
         bar: Option<ProgressBar>,
     ) -> Result<Self> {
-        let tuning = Tuning::for_budget(options.budget);
+        let tuning = Tuning::for_budget(&options.budget);
         Self::from_reader_tuned(input, file, options, bar, tuning)
     }
 
@@ -251,7 +254,7 @@ impl LogReader {
             id_col: schema.id_column(),
             step_col: schema.column(Role::Step),
         };
-        let mut assembler = Assembler::new(shape, options.budget, warnings);
+        let mut assembler = Assembler::new(shape, options.budget.clone(), warnings);
         assembler.next_file(file, opened.source.unit());
         Ok(LogReader {
             source: opened.source,
@@ -465,7 +468,7 @@ fn open_file(path: &str, options: &ReadOptions) -> Result<Opened> {
         src.reader,
         &name,
         options,
-        Tuning::for_budget(options.budget),
+        Tuning::for_budget(&options.budget),
     );
     if compressed {
         // Damaged deflate data can decode into plausible garbage; gzip's checksum is only
@@ -494,7 +497,7 @@ fn open_csv(
     options: &ReadOptions,
     tuning: Tuning,
 ) -> Result<Opened> {
-    let mut chunker = Chunker::new(input, options.delimiter, tuning);
+    let mut chunker = Chunker::new(input, options.delimiter, tuning).with_budget(&options.budget);
     let first = first_records(&mut chunker).map_err(|e| chunk_error(file, e))?;
     let Some(first) = first else {
         return Err(Error::input_hint(
@@ -517,6 +520,7 @@ fn open_csv(
     let parser = Arc::new(RowParser::new(&schema, file, options.delimiter));
     let mut parsed = parser.parse(&first.bytes[data_start..], data_line);
     parsed.tail = first.tail;
+    parsed.settle(&options.budget);
     chunker.recycle(first.bytes);
     let feed = if tuning.threaded {
         Feed::Threaded(Pipeline::start(chunker, Arc::clone(&parser)))
@@ -604,6 +608,7 @@ fn first_records(chunker: &mut Chunker) -> Result<Option<chunks::Block>, ChunkEr
 fn chunk_error(file: &str, e: ChunkError) -> Error {
     match e {
         ChunkError::Io(io) => io_error(file, io, None),
+        ChunkError::Budget(e) => e,
         ChunkError::RecordTooLong { line, limit } => Error::input_hint(
             Position {
                 file: file.into(),

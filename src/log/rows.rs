@@ -32,6 +32,8 @@ pub struct Parsed {
     scratch: Scratch,
     /// How the block's bytes end (only the file's last block can be cut short).
     pub tail: super::chunks::Tail,
+    /// What the block's buffers hold, on the budget's ledger ([`Parsed::settle`]).
+    charge: Option<crate::limits::Charge>,
 }
 
 impl Parsed {
@@ -42,6 +44,28 @@ impl Parsed {
         self.vectors.clear();
         self.error = None;
         self.tail = super::chunks::Tail::Complete;
+    }
+
+    /// Charges the block's buffers (their capacity) to `budget`'s ledger as the reader's;
+    /// a block over what the budget has left becomes an empty block with that error.
+    pub fn settle(&mut self, budget: &crate::limits::Budget) {
+        let bytes = (self.rows.capacity() * std::mem::size_of::<Row>()
+            + self.ids.capacity()
+            + self.vectors.capacity() * 8
+            + self.scratch.data.capacity()
+            + self.scratch.ends.capacity() * 8) as u64;
+        let charge = self
+            .charge
+            .get_or_insert_with(|| budget.charge(crate::limits::Holder::Reader));
+        let rows = self.rows.len();
+        if let Err(e) = charge.set(
+            bytes,
+            || format!("the reader's parsed blocks (one of {rows} rows)"),
+            "raise --max-memory (the reader sizes its blocks from it)",
+        ) {
+            self.clear();
+            self.error = Some(e);
+        }
     }
 
     pub fn id(&self, row: &Row) -> &[u8] {
