@@ -133,6 +133,11 @@ pub struct LogArgs {
     /// resamples after). Default: 80% of the memory available when the run starts
     #[arg(long, value_name = "MB")]
     pub max_memory: Option<u64>,
+
+    /// The run's one budget, made on first use: every holder of the run (the reader, the
+    /// command's summaries) charges its one ledger.
+    #[arg(skip)]
+    pub ledger: std::sync::OnceLock<crate::limits::Budget>,
 }
 
 #[derive(Debug, Clone, Copy, ValueEnum)]
@@ -451,10 +456,14 @@ impl LogArgs {
 
     /// The memory budget: --max-memory (at most the machine's memory), else the default.
     pub fn budget(&self) -> Result<crate::limits::Budget> {
-        self.max_memory.map_or_else(
+        if let Some(b) = self.ledger.get() {
+            return Ok(b.clone());
+        }
+        let b = self.max_memory.map_or_else(
             || Ok(crate::limits::Budget::default()),
             crate::limits::Budget::from_option,
-        )
+        )?;
+        Ok(self.ledger.get_or_init(|| b).clone())
     }
 
     /// The first pass of --fit-value: fits a critic on the log (which must be a file: it is

@@ -125,8 +125,18 @@ impl Budget {
         self.ledger.total()
     }
 
-    /// The error for `need` bytes that do not fit, naming what the ledger holds already.
+    /// The error for `need` bytes that do not fit, naming what the ledger holds already and,
+    /// when another holder holds the most, how to make it hold less.
     fn over(&self, need: u128, what: String, fix: &str) -> Error {
+        let largest = Holder::ALL
+            .iter()
+            .zip(&self.ledger.held)
+            .map(|(h, b)| (b.load(Ordering::Relaxed), *h))
+            .max_by_key(|&(b, _)| b)
+            .filter(|&(b, _)| u128::from(b) > need);
+        let also = largest.map_or(String::new(), |(_, h)| {
+            format!("; most is held by {}: {}", h.name(), h.lower())
+        });
         // Rounded up, so that a need just over the budget never reads as equal to it.
         let mb = need.div_ceil(1 << 20);
         let shown = if mb > u128::from(u64::MAX >> 20) {
@@ -137,7 +147,7 @@ impl Budget {
             format!("about {mb} MB")
         };
         Error::usage(format!(
-            "{what} need {shown}, over the memory budget of {} MB (--max-memory){}; {fix}",
+            "{what} need {shown}, over the memory budget of {} MB (--max-memory){}; {fix}{also}",
             self.mb(),
             self.ledger.describe()
         ))
@@ -167,6 +177,22 @@ impl Holder {
         Holder::Summaries,
         Holder::Resampling,
     ];
+
+    /// How to make this holder hold less, for messages naming it as the largest.
+    fn lower(self) -> &'static str {
+        match self {
+            Holder::Reader => "it sizes its blocks from --max-memory",
+            Holder::OpenEpisodes => {
+                "check that every episode's last row sets terminated or truncated"
+            }
+            Holder::FinishedIds => "about 80 bytes per finished episode: split the log",
+            Holder::Summaries => "audit fewer estimators, or split the log",
+            Holder::Resampling => {
+                "use fewer --resamples or --splits, or --resampling poisson, whose memory does \
+                 not grow with the episodes"
+            }
+        }
+    }
 
     fn name(self) -> &'static str {
         match self {
@@ -214,12 +240,13 @@ impl Ledger {
     }
 }
 
-/// Bytes in words for messages: "12 MB", or "<1 MB".
+/// Bytes in words for messages, rounded up: "653 kB", "2.2 MB".
 fn shown_mb(bytes: u64) -> String {
     if bytes < 1 << 20 {
         format!("{} kB", bytes.div_ceil(1 << 10))
     } else {
-        format!("{} MB", bytes.div_ceil(1 << 20))
+        let tenths = (u128::from(bytes) * 10).div_ceil(1 << 20);
+        format!("{}.{} MB", tenths / 10, tenths % 10)
     }
 }
 
