@@ -137,14 +137,14 @@ impl Budget {
         let also = largest.map_or(String::new(), |(_, h)| {
             format!("; most is held by {}: {}", h.name(), h.lower())
         });
-        // Rounded up, so that a need just over the budget never reads as equal to it.
-        let mb = need.div_ceil(1 << 20);
-        let shown = if mb > u128::from(u64::MAX >> 20) {
+        // Rounded up (to a tenth of a MB), so that a need just over the budget never reads
+        // as equal to it.
+        let shown = if need > u128::from(u64::MAX) {
             "more than 16 million terabytes".to_string()
         } else if need < 1 << 20 {
             format!("{need} bytes")
         } else {
-            format!("about {mb} MB")
+            format!("about {}", shown_mb(need as u64))
         };
         Error::usage(format!(
             "{what} need {shown}, over the memory budget of {} MB (--max-memory){}; {fix}{also}",
@@ -355,6 +355,52 @@ pub const MAX_ID_BYTES: usize = 4096;
 mod tests {
     use super::*;
 
+    // Two holders that each fit but together do not: the second is refused, the message
+    // names both; dropping a charge gives its bytes back; clones share the ledger.
+    #[test]
+    fn charges_of_one_budget_are_summed() {
+        let b = Budget::from_mb(10);
+        let mut ids = b.charge(Holder::FinishedIds);
+        ids.set(6 << 20, || "ids".into(), "fix").unwrap();
+        let shared = b.clone();
+        let mut rows = shared.charge(Holder::Summaries);
+        let e = rows
+            .set(5 << 20, || "rows".into(), "lower it")
+            .unwrap_err()
+            .to_string();
+        assert!(
+            e.contains("rows need about 5.0 MB, over the memory budget of 10 MB")
+                && e.contains("6.0 MB already held (finished-episode ids 6.0 MB)")
+                && e.contains("lower it; most is held by finished-episode ids"),
+            "{e}"
+        );
+        assert_eq!((rows.bytes(), b.held()), (0, 6 << 20));
+        rows.set(4 << 20, || "rows".into(), "f").unwrap();
+        assert!(b.check(1, || "one more".into(), "f").is_err());
+        drop(ids);
+        assert_eq!(b.held(), 4 << 20);
+        rows.set(1 << 20, || unreachable!(), "f").unwrap();
+        assert_eq!(b.held(), 1 << 20);
+        // Another budget of the same size is another ledger.
+        assert_eq!(Budget::from_mb(10).held(), 0);
+    }
+
+    // Growing a vector charges the old and the new allocation, then settles at the new one.
+    #[test]
+    fn reserve_charges_the_growth_first() {
+        let b = Budget::from_bytes(10_000);
+        let mut c = b.charge(Holder::Summaries);
+        let mut v: Vec<f64> = Vec::new();
+        c.reserve(&mut v, 1000, 0, || "v".into(), "f").unwrap();
+        assert!(v.capacity() >= 1000);
+        assert_eq!(c.bytes(), 8 * v.capacity() as u64);
+        v.resize(v.capacity(), 0.0);
+        // 8 kB held; growing by a quarter needs the old 8 kB and the new 10 kB at once.
+        let e = c.reserve(&mut v, 1, 0, || "v".into(), "f").unwrap_err();
+        assert!(e.to_string().contains("budget of 0 MB"), "{e}");
+        assert_eq!(c.bytes(), 8 * v.capacity() as u64);
+    }
+
     #[test]
     fn huge_max_memory_is_refused() {
         let e = Budget::from_option(u64::MAX).unwrap_err().to_string();
@@ -382,13 +428,13 @@ mod tests {
             .check(11 << 20, || "r".into(), "f")
             .unwrap_err()
             .to_string();
-        assert!(e.contains("about 11 MB"), "{e}");
+        assert!(e.contains("about 11.0 MB"), "{e}");
         let e = b
             .check((10 << 20) + 1, || "r".into(), "f")
             .unwrap_err()
             .to_string();
         assert!(
-            e.contains("about 11 MB") && e.contains("budget of 10 MB"),
+            e.contains("about 10.1 MB") && e.contains("budget of 10 MB"),
             "{e}"
         );
     }

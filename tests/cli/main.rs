@@ -11,6 +11,7 @@ mod fuzz_inputs;
 mod gate;
 mod hardening_counts;
 mod hardening_files;
+mod hardening_ledger;
 mod hardening_numeric;
 mod hardening_reader;
 mod inspect;
