@@ -315,7 +315,13 @@ impl LogReader {
         while !self.at_eof {
             let Some(block) = self.pending.front() else {
                 match self.source.next(&self.file) {
-                    Some(b) => self.pending.push_back(b?),
+                    Some(b) => {
+                        // CSV blocks are charged on the producer already (settling again is a
+                        // no-op); columnar batches are charged here.
+                        let mut b = b?;
+                        b.settle(&self.options.budget);
+                        self.pending.push_back(b);
+                    }
                     None => self.next_file()?,
                 }
                 continue;
