@@ -158,20 +158,23 @@ impl Assembler {
         };
         self.held += step_bytes + fixed;
         let ep = &open.episode;
-        self.open_charge
-            .set(
-                self.held,
-                || {
-                    format!(
-                        "open episodes ({open_count} open; '{}' has {} steps so far)",
-                        fields::shown(ep.id.as_bytes()),
-                        ep.rewards.len() + 1
-                    )
-                },
-                "check that every episode's last row sets terminated or truncated, or raise \
-                 --max-memory",
-            )
-            .map_err(|e| Error::input(loc.at(row.line, None), e.to_string()))?;
+        // Charged in steps of CHARGE_STEP, so that most rows do not touch the shared ledger.
+        if self.held > self.open_charge.bytes() {
+            self.open_charge
+                .set(
+                    self.held.next_multiple_of(CHARGE_STEP),
+                    || {
+                        format!(
+                            "open episodes ({open_count} open; '{}' has {} steps so far)",
+                            fields::shown(ep.id.as_bytes()),
+                            ep.rewards.len() + 1
+                        )
+                    },
+                    "check that every episode's last row sets terminated or truncated, or raise \
+                     --max-memory",
+                )
+                .map_err(|e| Error::input(loc.at(row.line, None), e.to_string()))?;
+        }
         let ep = &mut open.episode;
         push_step(ep, row, &block.vectors[i * w..(i + 1) * w]);
         ep.lines.push(row.line);
@@ -195,7 +198,10 @@ impl Assembler {
         };
         let done = self.open.remove(key).expect("open above").episode;
         self.held -= step_bytes * done.len() as u64 + OPEN_BYTES + key.len() as u64;
-        self.open_charge.force(self.held);
+        if self.held + 2 * CHARGE_STEP < self.open_charge.bytes() {
+            self.open_charge
+                .force(self.held.next_multiple_of(CHARGE_STEP));
+        }
         if self.shape.vector_env {
             *self.runs.entry(key.to_vec()).or_insert(0) += 1;
         } else {
@@ -362,6 +368,9 @@ fn table_bytes(capacity: usize) -> u64 {
     let buckets = (capacity as u64 * 8).div_ceil(7).next_power_of_two();
     buckets * 33
 }
+
+/// The open episodes' charge moves in steps of this many bytes.
+const CHARGE_STEP: u64 = 64 << 10;
 
 /// Bytes an open episode holds besides its steps: its entry in the table of open episodes
 /// and the headers of its vectors (its id's bytes are added).
