@@ -384,6 +384,30 @@ mod tests {
         Ok(out)
     }
 
+    // Blocks sized from the budget: the blocks in flight aim at a quarter of it (PARSED
+    // times the raw bytes for the parsed ones); budgets too small for 64 kB blocks on the
+    // producer thread parse 4 to 64 kB blocks inline.
+    #[test]
+    fn block_sizes_follow_the_budget() {
+        use crate::limits::Budget;
+        let batch = super::super::pipeline::batch() as u64;
+        let in_flight = (batch + 2) + PARSED * (4 * batch + 2);
+        let big = Tuning::for_budget(&Budget::from_mb(1000));
+        assert!(big.threaded);
+        assert_eq!(
+            big.block as u64,
+            ((1000 << 20) / 4 / in_flight).min(BLOCK as u64)
+        );
+        assert!(in_flight * big.block as u64 <= (1000 << 20) / 4);
+        let small = Tuning::for_budget(&Budget::from_mb(4));
+        assert!(!small.threaded);
+        assert!((4 << 10..=64 << 10).contains(&small.block));
+        assert!((3 + 3 * PARSED) * small.block as u64 <= 1 << 20);
+        assert_eq!(small.max_record, 512 << 10);
+        let tiny = Tuning::for_budget(&Budget::from_mb(0));
+        assert_eq!((tiny.threaded, tiny.block), (false, 4 << 10));
+    }
+
     #[test]
     fn blocks_reassemble_the_stream_and_count_lines() {
         let text: String = (0..400_000)

@@ -132,3 +132,46 @@ fn audit_holders_share_the_ledger_and_the_largest_is_named() {
     let (code, _, err) = run(&poisson);
     assert_eq!(code, 0, "{err}");
 }
+
+/// Every charge is given back: while a log is read the ledger holds the reader's blocks, the
+/// open episodes and the finished ids; once the reader is dropped (at the end, or after an
+/// error mid-file) it holds nothing, whether blocks are parsed on the producer thread or inline.
+#[test]
+fn a_dropped_reader_gives_every_charge_back() {
+    use gradaudit::limits::Budget;
+    use gradaudit::log::{LogReader, Progress, ReadOptions};
+    let mut text = String::from("episode,step,reward,terminated,score_0\n");
+    for i in 0..20_000 {
+        writeln!(text, "{i},0,1,0,0.5\n{i},1,2,1,-0.5").unwrap();
+    }
+    let broken = format!("{text}x,0,oops,1,1\n");
+    // 4 MB parses inline (blocks under 64 kB), 64 MB on the producer thread.
+    for mb in [4, 64] {
+        for (log, complete) in [(&text, true), (&broken, false)] {
+            let budget = Budget::from_mb(mb);
+            let opts = ReadOptions {
+                progress: Progress::Hidden,
+                budget: budget.clone(),
+                ..ReadOptions::default()
+            };
+            let input = Box::new(std::io::Cursor::new(log.clone().into_bytes()));
+            let mut r = LogReader::from_reader(input, "mem.csv", &opts, None).unwrap();
+            let first = r.next_episode().unwrap().unwrap();
+            assert_eq!(first.len(), 2);
+            assert!(budget.held() > 0, "the reader's blocks are charged");
+            let mut n = 1;
+            let end = loop {
+                match r.next_episode() {
+                    Ok(Some(_)) => n += 1,
+                    Ok(None) => break Ok(()),
+                    Err(e) => break Err(e.to_string()),
+                }
+            };
+            assert_eq!(end.is_ok(), complete, "{end:?}");
+            assert_eq!(n, 20_000);
+            assert!(budget.held() > 0, "the finished ids are charged");
+            drop(r);
+            assert_eq!(budget.held(), 0, "{mb} MB, complete: {complete}");
+        }
+    }
+}
