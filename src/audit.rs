@@ -380,7 +380,7 @@ where
         .map(|path| crate::critic::net::ValueCritic::load(path, reader.schema()))
         .transpose()?;
     let mut clip = scores.clip.clone();
-    let mut scorer = Scorer::new(scores);
+    let mut scorer = Scorer::new(scores).with_budget(&cfg.budget);
     while let Some(mut ep) = scorer.next(&mut reader)? {
         if let Some(c) = &mut clip {
             c.push(&ep);

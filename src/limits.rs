@@ -167,15 +167,18 @@ pub enum Holder {
     Summaries,
     /// Resampled rows, Poisson sums and the resampling scratch.
     Resampling,
+    /// Episodes read ahead to have their scores computed together (audit/scoring.rs).
+    Scoring,
 }
 
 impl Holder {
-    const ALL: [Holder; 5] = [
+    const ALL: [Holder; 6] = [
         Holder::Reader,
         Holder::OpenEpisodes,
         Holder::FinishedIds,
         Holder::Summaries,
         Holder::Resampling,
+        Holder::Scoring,
     ];
 
     /// How to make this holder hold less, for messages naming it as the largest.
@@ -191,6 +194,7 @@ impl Holder {
                 "use fewer --resamples or --splits, or --resampling poisson, whose memory does \
                  not grow with the episodes"
             }
+            Holder::Scoring => "it takes an eighth of --max-memory, at most 64 MB",
         }
     }
 
@@ -201,6 +205,7 @@ impl Holder {
             Holder::FinishedIds => "finished-episode ids",
             Holder::Summaries => "per-episode summaries",
             Holder::Resampling => "resampled rows and scratch",
+            Holder::Scoring => "episodes queued for scoring",
         }
     }
 }
