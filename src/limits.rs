@@ -188,7 +188,7 @@ impl Holder {
             Holder::OpenEpisodes => {
                 "check that every episode's last row sets terminated or truncated"
             }
-            Holder::FinishedIds => "about 80 bytes per finished episode: split the log",
+            Holder::FinishedIds => "about 40 to 80 bytes per finished episode: split the log",
             Holder::Summaries => "audit fewer estimators, or split the log",
             Holder::Resampling => {
                 "use fewer --resamples or --splits, or --resampling poisson, whose memory does \

@@ -56,8 +56,12 @@ pub struct Assembler {
     open: HashMap<Vec<u8>, Open>,
     /// 128-bit digests of finished episodes' ids ([`id_key`]) with the record that ended each
     /// and its file, to detect a reused id: about 33 bytes per bucket, charged to the
-    /// budget's ledger (`ended_charge`).
-    ended: HashMap<u128, (u64, u32)>,
+    /// budget's ledger (`ended_charge`). In [`ENDED_SHARDS`] tables by the digest's top bits,
+    /// so that a table doubling holds its old copy for a sixteenth of the ids, not all.
+    ended: Vec<HashMap<u128, (u64, u32)>>,
+    /// Ids in `ended`, and the bytes of its tables.
+    ended_count: usize,
+    ended_bytes: u64,
     /// Vector-environment layout: the next run number of each environment.
     runs: HashMap<Vec<u8>, u64>,
     /// Files read so far (the last is the current one) and their record word ("line", "row").
@@ -103,7 +107,9 @@ impl Assembler {
         Assembler {
             shape,
             open: HashMap::new(),
-            ended: HashMap::new(),
+            ended: (0..ENDED_SHARDS).map(|_| HashMap::new()).collect(),
+            ended_count: 0,
+            ended_bytes: 0,
             runs: HashMap::new(),
             files: Vec::new(),
             leftovers: Vec::new(),
@@ -223,7 +229,8 @@ impl Assembler {
         } else {
             // An open id cannot have ended (ending removes it from `open`), so only a row
             // starting an episode looks in `ended`.
-            if let Some(&(end_line, file)) = self.ended.get(&id_key(key)) {
+            let k = id_key(key);
+            if let Some(&(end_line, file)) = self.ended[shard(k)].get(&k) {
                 let place = if file == self.file_index() {
                     loc.place(end_line)
                 } else {
@@ -271,28 +278,32 @@ impl Assembler {
 
     /// Records a finished id, charging the table's growth to the ledger first.
     fn remember_end(&mut self, key: &[u8], line: u64, loc: &dyn Locate) -> Result<()> {
-        if self.ended.len() == self.ended.capacity() {
+        let (k, file) = (id_key(key), self.file_index());
+        let table = &mut self.ended[shard(k)];
+        if table.len() == table.capacity() {
             // Growing allocates the doubled table while the old one is still held.
-            let now = table_bytes(self.ended.capacity());
-            let grown = table_bytes(self.ended.capacity().max(3) * 2);
-            let n = self.ended.len() + 1;
+            let old = table_bytes(table.capacity());
+            let grown = table_bytes(table.capacity().max(3) * 2);
+            let n = self.ended_count + 1;
             self.ended_charge
                 .set(
-                    now + grown,
+                    self.ended_bytes + grown,
                     || {
                         format!(
                             "the ids of {n} finished episodes (kept to detect a reused id, \
                              about 33 bytes each at the table's growth)"
                         )
                     },
-                    "raise --max-memory (about 80 bytes per finished episode at the table's \
-                     growth), or split the log",
+                    "raise --max-memory (about 40 to 80 bytes per finished episode), or split \
+                     the log",
                 )
                 .map_err(|e| Error::input(loc.at(line, None), e.to_string()))?;
-            self.ended.reserve(1);
-            self.ended_charge.force(table_bytes(self.ended.capacity()));
+            table.reserve(1);
+            self.ended_bytes = self.ended_bytes - old + table_bytes(table.capacity());
+            self.ended_charge.force(self.ended_bytes);
         }
-        self.ended.insert(id_key(key), (line, self.file_index()));
+        table.insert(k, (line, file));
+        self.ended_count += 1;
         Ok(())
     }
 
@@ -357,6 +368,14 @@ impl Assembler {
     pub fn leftover(&mut self) -> Option<Episode> {
         self.leftovers.pop()
     }
+}
+
+/// Tables of finished ids ([`Assembler`]'s `ended`).
+const ENDED_SHARDS: usize = 16;
+
+/// The table of digest `k`: by its top 4 bits (uniform, as the digest is).
+fn shard(k: u128) -> usize {
+    (k >> 124) as usize % ENDED_SHARDS
 }
 
 /// Bytes of a hash table of `(u128, (u64, u32))` entries holding `capacity`: buckets (a power

@@ -57,14 +57,14 @@ fn amounts(err: &str) -> (f64, Vec<(String, f64)>) {
 fn holders_that_each_fit_but_together_exceed_the_budget_exit_2() {
     let dir = Dir::new("ledger");
     let ids = one_step_log(&dir, false);
-    // At 7 MB: the finished ids' table (2.2 MB, growing to 4.3 MB while the old one is
-    // still held: 6.5 MB) fits alone, and so do the reader's blocks (a quarter of the budget)
-    // and the returns kept for the median (0.8 MB); all together they do not.
+    // At 7 MB: the finished ids' tables (4.2 MB for 100,000 ids, a sixteenth more while one
+    // of them doubles) fit alone, and so do the reader's blocks (a quarter of the budget) and
+    // the returns kept for the median (0.8 MB); all together they do not. Whichever asks
+    // last is refused, and the message lists the others.
     let (code, _, err) = run(&["inspect", &ids, "--max-memory", "7"]);
     assert_eq!(code, 2, "{err}");
     for w in [
-        "ids.csv, line ",
-        "finished episodes",
+        "ids.csv",
         "memory budget of 7 MB (--max-memory)",
         "already held (",
         "the reader's blocks in flight",
@@ -78,15 +78,10 @@ fn holders_that_each_fit_but_together_exceed_the_budget_exit_2() {
     let (need, held) = amounts(&err);
     let total: f64 = held.iter().map(|(_, x)| x).sum();
     assert!(held.len() >= 3, "{held:?}");
+    assert!(need < 7.0, "{err}");
     for (name, x) in &held {
         assert!(*x < 7.0, "{name} alone exceeds 7 MB: {err}");
     }
-    let ids_alone = held
-        .iter()
-        .find(|(n, _)| n == "finished-episode ids")
-        .map(|(_, x)| x + need)
-        .unwrap();
-    assert!(ids_alone <= 7.0, "the ids alone fit: {ids_alone} MB; {err}");
     assert!(total + need > 7.0, "together over: {total} + {need}; {err}");
     // Without the finished ids (derived ids of environment runs keep no table) the rest fits
     // at the same budget; with room for all, the id layout finishes too.
