@@ -55,7 +55,16 @@ impl Tensors {
                     }
                     _ => w.to_string(),
                 };
-                let bytes = std::fs::read(&path).map_err(|e| Error::io(&path, e))?;
+                let bytes = std::fs::read(&path).map_err(|e| {
+                    Error::input_hint(
+                        Position {
+                            file: desc.to_string(),
+                            ..Default::default()
+                        },
+                        format!("cannot read the weights file '{path}' it names: {e}"),
+                        "\"weights\" is a path relative to the description file's folder",
+                    )
+                })?;
                 if let Err(e) = SafeTensors::deserialize(&bytes) {
                     return Err(at(&path, format!("not a readable safetensors file: {e}")));
                 }
