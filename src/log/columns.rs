@@ -978,6 +978,66 @@ mod tests {
         assert!(Schema::resolve(&spec, both, "f").is_err());
     }
 
+    // The next observation: prefixed columns after `next_` and the obs prefix, list columns
+    // under the trade's names or `next.NAME` for an obs list NAME, and a width check.
+    #[test]
+    fn next_observation_columns_and_lists() {
+        let h = hs(&[
+            "episode",
+            "reward",
+            "obs_0",
+            "obs_1",
+            "next_obs_1",
+            "next_obs_0",
+        ]);
+        let s = Schema::resolve(&ColumnSpec::default(), h, "f").unwrap();
+        assert_eq!(
+            (s.obs.clone(), s.next_obs.clone()),
+            (vec![2, 3], vec![5, 4])
+        );
+        let spec = ColumnSpec {
+            obs_prefix: "x".into(),
+            ..ColumnSpec::default()
+        };
+        let s = Schema::resolve(&spec, hs(&["episode", "reward", "x0", "next_x0"]), "f").unwrap();
+        assert_eq!(s.next_obs, vec![3]);
+        let h = hs(&[
+            "episode",
+            "reward",
+            "obs_0",
+            "obs_1",
+            "next_obs_0",
+            "next_obs_2",
+        ]);
+        let e = Schema::resolve(&ColumnSpec::default(), h, "f.csv").unwrap_err();
+        assert!(e.to_string().contains("column 5 ('next_obs_0')"), "{e}");
+        let mut spec = ColumnSpec::default();
+        spec.remap("obs=observation.state").unwrap();
+        let h = hs(&[
+            "episode",
+            "reward",
+            "observation.state",
+            "next.observation.state",
+        ]);
+        let s = Schema::resolve_with_lists(&spec, h.clone(), &[None, None, Some(2), Some(2)], "f")
+            .unwrap();
+        assert_eq!(s.next_obs, vec![6, 7]);
+        assert_eq!(s.headers[7], "next.observation.state[1]");
+        let e = Schema::resolve_with_lists(&spec, h, &[None, None, Some(2), Some(3)], "f.parquet")
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("column 4 ('next.observation.state')"), "{e}");
+        let h = hs(&["episode", "reward", "obs", "next_observations"]);
+        let s = Schema::resolve_with_lists(
+            &ColumnSpec::default(),
+            h,
+            &[None, None, Some(3), Some(3)],
+            "f",
+        )
+        .unwrap();
+        assert_eq!(s.next_obs.len(), 3);
+    }
+
     #[test]
     fn env_column_replaces_the_episode_id_and_lists_need_a_columnar_file() {
         let spec = ColumnSpec {
