@@ -92,7 +92,10 @@ impl Ctx<'_> {
                     .map(|&c| self.schema.headers[c].as_str())
                     .collect();
                 let have = match have.as_slice() {
-                    [] => "it has none".to_string(),
+                    [] => format!(
+                        "it has none: name their header prefix with --{kind}-prefix, or a list \
+                         column with --col {kind}=NAME"
+                    ),
                     [a, _, _, _, _, _, ..] => {
                         format!(
                             "they are {a} .. {} ({} columns)",

@@ -599,7 +599,8 @@ fn bad_weights_files_name_the_file_and_the_tensor() {
         })
     });
     assert!(
-        e.contains("tensor 'W2' (the weight of layer 2) has shape [4, 3], expected [out, 4]"),
+        e.contains("tensor 'W2' (the weight of layer 2) has shape [4, 3], expected [out, 4]")
+            && e.contains("it looks transposed"),
         "{e}"
     );
     let e = try_with(&|r| {
@@ -626,6 +627,32 @@ fn bad_weights_files_name_the_file_and_the_tensor() {
         err.contains("w.safetensors") && err.contains("not a readable safetensors file"),
         "{err}"
     );
+    // A weights file that is not there is named with the description that names it.
+    std::fs::remove_file(dir.path().join("w.safetensors")).unwrap();
+    let err = Policy::load(desc.to_str().unwrap(), &schema())
+        .unwrap_err()
+        .to_string();
+    assert!(
+        err.contains("a.json") && err.contains("cannot read the weights file"),
+        "{err}"
+    );
+}
+
+// Activation names are read in any case, so the frameworks' class names work as they are.
+#[test]
+fn activation_names_ignore_case() {
+    use super::activation::Activation;
+    for (name, want) in [
+        ("Tanh", Activation::Tanh),
+        ("ReLU", Activation::Relu),
+        ("LeakyReLU", Activation::LeakyRelu { slope: 0.01 }),
+        ("SiLU", Activation::Silu),
+        ("Identity", Activation::Identity),
+    ] {
+        assert_eq!(Activation::parse(name, None, None), Ok(want), "{name}");
+    }
+    let e = Activation::parse("GELU", None, None).unwrap_err();
+    assert!(e.contains("unknown activation 'GELU'"), "{e}");
 }
 
 #[test]
