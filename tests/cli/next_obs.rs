@@ -426,6 +426,11 @@ fn inspect_names_the_bootstrap_state() {
         ),
         "{out}"
     );
+    let (_, html, _) = run(&["inspect", &with, "--format", "html"]);
+    assert!(
+        html.contains("Bootstrap state for --value-net: logged next observation"),
+        "{html}"
+    );
     let j = run_json(&["inspect", &with, "--format", "json"]);
     assert!(
         j["bootstrap_state"]
