@@ -433,7 +433,8 @@ impl Schema {
         let explicit = spec.lists[v as usize].as_deref();
         let default = match v {
             VectorRole::NextObs => self.next_obs_list(widths),
-            _ => v.key().to_string(),
+            VectorRole::Obs | VectorRole::Act => self.plural_list(v, prefix, widths),
+            VectorRole::Score => v.key().to_string(),
         };
         let name = explicit.unwrap_or(&default);
         let at = |c: Option<usize>| Position {
@@ -526,6 +527,31 @@ impl Schema {
             .find(|n| is_list(n))
             .unwrap_or(&names[0])
             .clone()
+    }
+
+    /// The list column obs or act is read from by default: its key, or the plural offline
+    /// datasets write (`observations`, `actions`) when that is a list column and no header
+    /// starts with the role's prefix (so a log that names both keeps reading its columns).
+    fn plural_list(&self, v: VectorRole, prefix: &str, widths: &[Option<usize>]) -> String {
+        let plural = match v {
+            VectorRole::Obs => "observations",
+            _ => "actions",
+        };
+        let key = v.key();
+        let list_at = |n: &str| {
+            self.headers[..self.real]
+                .iter()
+                .position(|h| h == n)
+                .is_some_and(|c| widths.get(c).copied().flatten().is_some())
+        };
+        let prefixed = self.headers[..self.real]
+            .iter()
+            .any(|h| h.starts_with(prefix));
+        if !list_at(key) && list_at(plural) && !prefixed {
+            plural.to_string()
+        } else {
+            key.to_string()
+        }
     }
 
     /// Adds list column `c` (lists of `width` numbers) as vector role `v`: its elements
@@ -1036,6 +1062,21 @@ mod tests {
         )
         .unwrap();
         assert_eq!(s.next_obs.len(), 3);
+        // Offline datasets' plural list names, unless prefixed columns are there too.
+        let h = hs(&[
+            "episode",
+            "reward",
+            "observations",
+            "actions",
+            "next_observations",
+        ]);
+        let w = [None, None, Some(3), Some(2), Some(3)];
+        let s = Schema::resolve_with_lists(&ColumnSpec::default(), h, &w, "f").unwrap();
+        assert_eq!((s.obs.len(), s.act.len(), s.next_obs.len()), (3, 2, 3));
+        let h = hs(&["episode", "reward", "observations", "act_0"]);
+        let w = [None, None, Some(3), None];
+        let s = Schema::resolve_with_lists(&ColumnSpec::default(), h, &w, "f").unwrap();
+        assert_eq!((s.obs.len(), s.act.clone()), (3, vec![3]));
     }
 
     #[test]
