@@ -115,7 +115,13 @@ pub fn open(
         .enumerate()
         .map(|(c, f)| list_width(f.data_type(), first.as_ref().map(|b| b.column(c))))
         .collect();
-    let schema_r = Schema::resolve_with_lists(spec, headers, &widths, file)?;
+    // A columnar file has no header line: its column errors name the file and the column.
+    let schema_r = Schema::resolve_with_lists(spec, headers, &widths, file).map_err(|mut e| {
+        if let Error::Input(i) = &mut e {
+            i.at.line = None;
+        }
+        e
+    })?;
     let plan = Plan::new(&schema_r, &schema, file)?;
     let mut element_of = Vec::new();
     for l in &schema_r.lists {

@@ -393,7 +393,8 @@ fn next_observations_of_another_width_are_refused() {
     let (code, _, err) = run(&["inspect", &p]);
     assert_eq!(code, 2, "{err}");
     assert!(
-        err.contains("narrow.parquet") && err.contains("'next_obs[0]' .. 'next_obs[1]'"),
+        err.contains("narrow.parquet, column 9 ('next_obs')")
+            && err.contains("'next_obs[0]' .. 'next_obs[1]'"),
         "{err}"
     );
 }
