@@ -108,8 +108,8 @@ pub struct LogArgs {
     pub delimiter: String,
 
     /// Read role ROLE from column HEADER (repeatable). Roles: episode, step, reward,
-    /// terminated, truncated, done, value, next_value, q, logp; and score, obs, act for a
-    /// list column of a Parquet or Arrow file
+    /// terminated, truncated, done, value, next_value, q, logp; and score, obs, act, next_obs
+    /// for a list column of a Parquet or Arrow file
     #[arg(long = "col", value_name = "ROLE=HEADER")]
     pub columns: Vec<String>,
 
@@ -124,6 +124,11 @@ pub struct LogArgs {
     /// Header prefix of the action columns
     #[arg(long, default_value = "act_", value_name = "PREFIX")]
     pub act_prefix: String,
+
+    /// Header prefix of the next-observation columns (the obs after each step, for a value
+    /// network's bootstrap). Default: next_ followed by the obs prefix (next_obs_0, ...)
+    #[arg(long, value_name = "PREFIX")]
+    pub next_obs_prefix: Option<String>,
 
     /// No progress bar (it is shown only when stderr is a terminal anyway)
     #[arg(long, short)]
@@ -441,6 +446,7 @@ impl LogArgs {
         columns.score_prefix = self.score_prefix.clone();
         columns.obs_prefix = self.obs_prefix.clone();
         columns.act_prefix = self.act_prefix.clone();
+        columns.next_obs_prefix = self.next_obs_prefix.clone();
         columns.env = self.env_col.clone();
         Ok(ReadOptions {
             delimiter,

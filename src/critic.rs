@@ -9,8 +9,9 @@
 //! time limit T, tau = (T - t) / T, is affine in t, so [t, t^2] span the same functions as
 //! [tau, tau^2] without knowing T in advance (the fit is solved in standardised coordinates,
 //! an exact reparametrisation, so the scale of t does not hurt its conditioning). The bootstrap
-//! value of a truncated episode is the fitted value at its last observed state with the time
-//! after its last step (logs hold no next-state features).
+//! value of a truncated episode is the fitted value at the time after its last step, at the
+//! logged next observation s_T when the log has one (`Episode::next_obs`), else at its last
+//! observed state s_{T-1}.
 //!
 //! Fitting is one streaming pass (per-fold sums X^T X and X^T y only) and applying it another:
 //! the caller reads the log twice.
@@ -347,8 +348,16 @@ impl Critic {
         if let End::Truncated { .. } = ep.end
             && !ep.is_empty()
         {
-            // The last observed state, at the time after the last step.
+            // The logged next state, else the last observed one, at the time after the last
+            // step.
             features(ep, ep.len() - 1, &mut phi);
+            if let Some(next) = ep.next_obs.as_deref().filter(|x| x.len() == ep.obs_dim) {
+                let d = ep.obs_dim;
+                phi[1..=d].copy_from_slice(next);
+                for (k, x) in next.iter().enumerate() {
+                    phi[1 + d + k] = x * x;
+                }
+            }
             let (n, t) = (phi.len(), ep.len() as f64);
             phi[n - 2] = t;
             phi[n - 1] = t * t;

@@ -113,6 +113,10 @@ pub struct InspectReport {
     pub columns: Vec<Assignment>,
     /// How the end flags were read (the convention and the columns that decided it).
     pub end_flags: crate::log::EndFlags,
+    /// Where a value network (`--value-net`) takes the bootstrap state of truncated episodes:
+    /// the logged next observation, or the last observation; shown for logs with obs columns.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub bootstrap_state: Option<String>,
     /// Header columns that got no role and are ignored.
     pub unused_columns: Vec<String>,
     /// Discount of the returns the critic quality refers to.
@@ -204,6 +208,8 @@ pub fn run(
         act_dim: schema.act.len(),
         columns,
         end_flags: schema.end_flags(),
+        bootstrap_state: (!schema.obs.is_empty() || !schema.next_obs.is_empty())
+            .then(|| crate::critic::net::bootstrap_state(schema)),
         unused_columns,
         gamma,
         critic: crate::critic::CriticQuality {

@@ -149,8 +149,10 @@ impl Assembler {
         }
         let l = &self.shape.layout;
         let w = l.score_dim + l.obs_dim + l.act_dim + l.logged.len();
-        // Each step holds its vector fields, up to four scalars and its line number.
+        // Each step holds its vector fields, up to four scalars and its line number (the next
+        // observation is kept for the last row only, and not counted per step).
         let step_bytes = 8 * (w as u64 + 5);
+        let w = w + l.next_obs_dim;
         let open_count = self.open.len();
         let open = self.open.get_mut(key).expect("opened above");
         check_step(self.shape.step_col, open, row, loc)?;
@@ -182,7 +184,8 @@ impl Assembler {
                 .map_err(|e| Error::input(loc.at(row.line, None), e.to_string()))?;
         }
         let ep = &mut open.episode;
-        push_step(ep, row, &block.vectors[i * w..(i + 1) * w]);
+        let next_obs_dim = self.shape.layout.next_obs_dim;
+        push_step(ep, row, &block.vectors[i * w..(i + 1) * w], next_obs_dim);
         ep.lines.push(row.line);
         if !(row.terminated || row.truncated) {
             // Remember the last row's bootstrap in case the log ends mid-episode.
@@ -395,13 +398,20 @@ const CHARGE_STEP: u64 = 64 << 10;
 /// and the headers of its vectors (its id's bytes are added).
 const OPEN_BYTES: u64 = (std::mem::size_of::<Open>() + std::mem::size_of::<Vec<u8>>() + 16) as u64;
 
-/// Appends a row's values (`v`: its scores, obs, act and logged columns) to its episode.
-fn push_step(ep: &mut Episode, row: &Row, v: &[f64]) {
+/// Appends a row's values (`v`: its scores, obs, act, next obs and logged columns) to its
+/// episode; the next observation replaces the previous row's.
+fn push_step(ep: &mut Episode, row: &Row, v: &[f64], next_obs_dim: usize) {
     let (d, o, a) = (ep.score_dim, ep.obs_dim, ep.act_dim);
     ep.scores.extend_from_slice(&v[..d]);
     ep.obs.extend_from_slice(&v[d..d + o]);
     ep.act.extend_from_slice(&v[d + o..d + o + a]);
-    ep.logged.extend_from_slice(&v[d + o + a..]);
+    let n = d + o + a + next_obs_dim;
+    if next_obs_dim > 0 {
+        let next = ep.next_obs.get_or_insert_with(Vec::new);
+        next.clear();
+        next.extend_from_slice(&v[d + o + a..n]);
+    }
+    ep.logged.extend_from_slice(&v[n..]);
     ep.rewards.push(row.reward);
     for (x, xs) in [
         (row.value, ep.values.as_mut()),

@@ -16,6 +16,7 @@ pub mod columnar;
 pub mod columns;
 pub mod fields;
 mod pipeline;
+pub mod role_index;
 pub mod rows;
 pub mod source;
 
@@ -247,6 +248,7 @@ impl LogReader {
                 score_dim: schema.scores.len(),
                 obs_dim: schema.obs.len(),
                 act_dim: schema.act.len(),
+                next_obs_dim: schema.next_obs.len(),
                 logged: options.columns.logged.clone().into(),
             },
             has_end_flags: schema.has_end_flags(),

@@ -16,6 +16,7 @@ mod hardening_numeric;
 mod hardening_reader;
 mod inspect;
 mod network;
+mod next_obs;
 mod policy;
 mod projection;
 mod report_edges;
