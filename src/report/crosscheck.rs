@@ -148,7 +148,7 @@ fn cell(x: Option<f64>) -> String {
     x.and_then(finite).map_or("-".into(), num)
 }
 
-fn row_text(r: &Row) -> String {
+pub(crate) fn row_text(r: &Row) -> String {
     format!(
         "line {}, episode {}, step {}: logged {}, reference {} (difference {}, tolerance {})",
         r.line,
@@ -161,7 +161,7 @@ fn row_text(r: &Row) -> String {
     )
 }
 
-fn params_text(p: &BTreeMap<&'static str, f64>) -> String {
+pub(crate) fn params_text(p: &BTreeMap<&'static str, f64>) -> String {
     p.iter()
         .filter(|(_, v)| v.is_finite())
         .map(|(k, v)| format!("{k}={}", short(*v)))
@@ -170,7 +170,7 @@ fn params_text(p: &BTreeMap<&'static str, f64>) -> String {
 }
 
 /// A fitted value with enough digits to see a fine grid (at most 9 significant).
-fn short(x: f64) -> String {
+pub(crate) fn short(x: f64) -> String {
     let s = format!("{x:.9}");
     let s = s.trim_end_matches('0').trim_end_matches('.');
     if s.is_empty() || s == "-" {
@@ -244,7 +244,7 @@ fn header_lines(r: &CrosscheckReport) -> Vec<String> {
     ]
 }
 
-fn tolerance_text(c: &ColumnReport) -> String {
+pub(crate) fn tolerance_text(c: &ColumnReport) -> String {
     let t = &c.tolerance;
     match t.unit {
         Some(u) => format!(
@@ -259,7 +259,7 @@ fn tolerance_text(c: &ColumnReport) -> String {
     }
 }
 
-fn agreement_text(c: &ColumnReport) -> String {
+pub(crate) fn agreement_text(c: &ColumnReport) -> String {
     let a = &c.agreement;
     let unchecked = if a.unchecked_steps > 0 {
         format!(
