@@ -479,7 +479,7 @@ pub fn sweep(r: &SweepReport) -> String {
     body.push_str(&figure(
         "fig-curves",
         &format!("Bias and variance over {}", st.over.key()),
-        &figures::sweep_curves(r),
+        &super::curves::sweep_svg(r, super::curves::Target::Page),
         &legend(
             &[
                 ("mse", "MSE"),

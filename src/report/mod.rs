@@ -10,6 +10,7 @@
 pub mod columns;
 pub mod crosscheck;
 pub mod csv;
+pub mod curves;
 pub mod gate;
 pub mod groups;
 pub mod html;

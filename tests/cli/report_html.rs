@@ -217,6 +217,25 @@ fn sweep_page_shades_the_mse_interval_and_the_one_se_points() {
     let rec = json["choice"]["recommended"].as_u64().unwrap() as usize;
     let rows = body_rows(by_id(&doc, "points"));
     assert!(has_class(&rows[rec], "rec"));
+    // The stand-alone --plot file is the same drawing: the same band, the same one-SE columns.
+    let dir = Dir::new("sweep-plot");
+    let plot = dir.path("lambda.svg").to_string_lossy().into_owned();
+    page(&[&args[..], &["--plot", &plot]].concat());
+    let file = std::fs::read_to_string(&plot).unwrap();
+    let file = roxmltree::Document::parse(&file).expect("well-formed SVG");
+    let band = |d: &roxmltree::Document| -> Vec<String> {
+        d.descendants()
+            .filter(|n| n.has_tag_name("polygon") && has_class(n, "band"))
+            .filter_map(|n| n.attribute("points").map(str::to_string))
+            .collect()
+    };
+    assert_eq!(band(&file), band(&doc));
+    assert_eq!(band(&file).len(), 1);
+    let se = file
+        .descendants()
+        .filter(|n| n.has_tag_name("rect") && has_class(n, "se") && !has_class(n, "keybox"))
+        .count();
+    assert_eq!(se, count("rect", "se"));
 }
 
 #[test]
