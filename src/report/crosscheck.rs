@@ -2,21 +2,18 @@
 //! Markdown renderings. Every figure is finite or None.
 
 use super::table::num;
-use super::{Tool, finite};
+use super::{LogCounts, Tool, finite};
 use crate::crosscheck::{CheckConfig, Claim};
 use crate::warnings::Warnings;
 use serde::Serialize;
 use std::collections::BTreeMap;
 
-/// What was read.
+/// What was read: the counts every report has (in the JSON at this level), and the
+/// environments.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct Input {
-    pub file: String,
-    pub rows: u64,
-    pub episodes: u64,
-    pub steps: u64,
-    pub terminated: u64,
-    pub truncated: u64,
+    #[serde(flatten)]
+    pub log: LogCounts,
     /// Distinct environment values (0 without an environment column).
     pub environments: usize,
     #[serde(skip)]
@@ -123,10 +120,7 @@ impl CrosscheckReport {
     pub fn new(input: Input, cfg: &CheckConfig, columns: Vec<ColumnReport>) -> Self {
         let c = cfg.claim;
         CrosscheckReport {
-            tool: Tool {
-                schema: "gradaudit.crosscheck/1",
-                ..Tool::current()
-            },
+            tool: Tool::with_schema("gradaudit.crosscheck/1"),
             claim: ClaimInfo {
                 estimator: c.name(),
                 gamma: c.gamma,
@@ -223,7 +217,7 @@ pub fn verdict(c: &ColumnReport) -> String {
 fn header_lines(r: &CrosscheckReport) -> Vec<String> {
     let i = &r.input;
     vec![
-        format!("gradaudit crosscheck of {}", i.file),
+        format!("gradaudit crosscheck of {}", i.log.file),
         format!(
             "claim      {} at gamma {}",
             r.claim.estimator,
@@ -231,10 +225,10 @@ fn header_lines(r: &CrosscheckReport) -> Vec<String> {
         ),
         format!(
             "log        {} episodes, {} steps ({} terminated, {} truncated){}",
-            i.episodes,
-            i.steps,
-            i.terminated,
-            i.truncated,
+            i.log.episodes,
+            i.log.steps,
+            i.log.terminated,
+            i.log.truncated,
             if i.environments > 0 {
                 format!(", {} environments", i.environments)
             } else {

@@ -287,7 +287,7 @@ fn column_section(k: usize, c: &ColumnReport) -> String {
 
 fn crosscheck_settings(r: &CrosscheckReport) -> String {
     let mut pairs = vec![
-        ("log", r.input.file.clone()),
+        ("log", r.input.log.file.clone()),
         ("claimed computation", r.claim.estimator.clone()),
         ("gamma", short(r.claim.gamma)),
     ];
@@ -323,13 +323,13 @@ pub fn crosscheck(r: &CrosscheckReport) -> String {
          <h1 id=\"verdict\" class=\"{}\">{}</h1>\n<p class=\"facts\">{} episodes, {} steps ({} \
          terminated, {} truncated){envs}; claimed computation {} at gamma {}; exit code {}.\
          </p>\n</header>\n",
-        esc(&i.file),
+        esc(&i.log.file),
         if r.agree { "pass" } else { "fail" },
         esc(&headline(r)),
-        i.episodes,
-        i.steps,
-        i.terminated,
-        i.truncated,
+        i.log.episodes,
+        i.log.steps,
+        i.log.terminated,
+        i.log.truncated,
         esc(&r.claim.estimator),
         short(r.claim.gamma),
         if r.agree { 0 } else { 1 }
@@ -344,5 +344,5 @@ pub fn crosscheck(r: &CrosscheckReport) -> String {
     }
     body.push_str(&crosscheck_settings(r));
     body.push_str(&footer(r.tool.schema));
-    page(&format!("gradaudit crosscheck of {}", i.file), &body)
+    page(&format!("gradaudit crosscheck of {}", i.log.file), &body)
 }
