@@ -1,9 +1,9 @@
 //! The rough edges of the text screens (issue 15), one test each: the sweep's sentence is
 //! complete, Markdown tables parse with the right column count in a CommonMark + tables parser
-//! (pulldown-cmark; crosscheck's faults tables too), `inspect --format json` carries the tool/schema envelope, estimators
-//! identical by construction share one row (JSON keeps them apart), the tables have our own
-//! look, the gate says "holds"/"breaks", and the terminal tables fit 100 columns unless
-//! `--wide`.
+//! (pulldown-cmark; crosscheck's faults tables too), `inspect --format json` carries the
+//! tool/schema envelope, estimators identical by construction share one row (JSON keeps them
+//! apart), the tables have our own look, the gate says "holds"/"breaks", and the terminal
+//! tables fit 100 columns unless `--wide`.
 
 use crate::snapshots::output;
 use crate::util::{demo, run, run_json};
