@@ -6,7 +6,7 @@
 //! tables fit 100 columns unless `--wide`.
 
 use crate::snapshots::output;
-use crate::util::{demo, run, run_json};
+use crate::util::{crosscheck_args, demo, run, run_json};
 use pulldown_cmark::{Event, Options, Parser, Tag, TagEnd};
 
 const ROVER: &str = "demo-data/docking_rover.csv";
@@ -91,17 +91,7 @@ fn markdown_tables_parse_with_every_column() {
 
     // crosscheck: a faults table per differing column, 7 columns, a row per fault checked.
     let fault = demo("docking_rover_adv_fault.csv");
-    let cc = run(&[
-        "crosscheck",
-        &fault,
-        "--advantage",
-        "adv",
-        "--returns",
-        "value_target",
-        "--format",
-        "markdown",
-    ])
-    .1;
+    let cc = run(&[&crosscheck_args(&fault)[..], &["--format", "markdown"]].concat()).1;
     let tables = markdown_tables(&cc);
     let sizes: Vec<usize> = tables.iter().map(|t| t.len() - 1).collect();
     assert_eq!(

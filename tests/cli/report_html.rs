@@ -9,7 +9,7 @@
 //! GRADAUDIT_CHROMIUM names another binary; GRADAUDIT_SCREENS the folder for the screenshots
 //! (default: a folder under cargo's target tmp dir, printed by the test).
 
-use crate::util::{Dir, demo, run, run_json};
+use crate::util::{Dir, crosscheck_args, demo, run, run_json};
 use std::path::{Path, PathBuf};
 use std::process::Command;
 use std::time::{Duration, Instant};
@@ -121,6 +121,14 @@ fn assert_howto_beside_figures(doc: &roxmltree::Document) {
     }
 }
 
+/// The page's text holds every one of `needles`.
+fn assert_mentions(doc: &roxmltree::Document, needles: &[&str]) {
+    let text: String = doc.descendants().filter_map(|n| n.text()).collect();
+    for needle in needles {
+        assert!(text.contains(needle), "{needle}");
+    }
+}
+
 /// The rows an audit table shows: one per estimator, td / gae:0 / nstep:1 on one row.
 fn expected_audit_rows(json: &serde_json::Value) -> usize {
     let names = crate::util::strings(&json["estimators"], "name");
@@ -178,16 +186,16 @@ fn audit_page_is_well_formed_self_contained_and_complete() {
         .count();
     assert_eq!(hatched, unsure_json);
     // Notes, skipped estimators, settings and seed.
-    let text: String = doc.descendants().filter_map(|n| n.text()).collect();
-    for needle in [
-        "Skipped estimators",
-        "q: needs the q column",
-        "20240917",
-        "Settings",
-        "total: episodes_for_snr",
-    ] {
-        assert!(text.contains(needle), "{needle}");
-    }
+    assert_mentions(
+        &doc,
+        &[
+            "Skipped estimators",
+            "q: needs the q column",
+            "20240917",
+            "Settings",
+            "total: episodes_for_snr",
+        ],
+    );
 }
 
 #[test]
@@ -281,18 +289,6 @@ fn gate_and_inspect_pages_are_well_formed() {
     assert_eq!(body_rows(by_id(&doc, "columns")).len(), roles);
 }
 
-/// `crosscheck` of both logged columns of a rover demo log.
-fn crosscheck_args(log: &str) -> Vec<&str> {
-    vec![
-        "crosscheck",
-        log,
-        "--advantage",
-        "adv",
-        "--returns",
-        "value_target",
-    ]
-}
-
 #[test]
 fn crosscheck_page_is_well_formed_and_names_the_fault() {
     let fault = demo("docking_rover_adv_fault.csv");
@@ -333,18 +329,18 @@ fn crosscheck_page_is_well_formed_and_names_the_fault() {
         assert_eq!(named, explains);
         assert_eq!(named, ["truncation_as_termination"]);
     }
-    // "How to read this", the warnings-free facts, the settings.
-    let text: String = doc.descendants().filter_map(|n| n.text()).collect();
-    for needle in [
-        "How to read this",
-        "exit code 1",
-        "line 494, episode rover-0014, step 0",
-        "Settings",
-        "claimed computation",
-        "what the faulty code does",
-    ] {
-        assert!(text.contains(needle), "{needle}");
-    }
+    // "How to read this", the facts, the first difference, the settings.
+    assert_mentions(
+        &doc,
+        &[
+            "How to read this",
+            "exit code 1",
+            "line 494, episode rover-0014, step 0",
+            "Settings",
+            "claimed computation",
+            "what the faulty code does",
+        ],
+    );
 
     // The correct columns: the page says they agree and lists no faults.
     let good = demo("docking_rover_adv.csv");

@@ -8,7 +8,7 @@
 //! The runs use the default seed and the repository-relative demo paths (the binary runs in the
 //! repository root), so the files hold nothing of the machine.
 
-use crate::util::gradaudit;
+use crate::util::{crosscheck_args, gradaudit};
 use std::path::PathBuf;
 
 const ROVER: &str = "demo-data/docking_rover.csv";
@@ -16,18 +16,9 @@ const DIVERTER: &str = "demo-data/parcel_diverter.csv";
 const ADV: &str = "demo-data/docking_rover_adv.csv";
 const FAULT: &str = "demo-data/docking_rover_adv_fault.csv";
 
-/// `crosscheck` of both logged columns of a demo log, as the README runs it.
+/// `crosscheck` of both logged columns of a demo log in `format`.
 fn crosscheck(log: &'static str, format: &'static str) -> Vec<&'static str> {
-    vec![
-        "crosscheck",
-        log,
-        "--advantage",
-        "adv",
-        "--returns",
-        "value_target",
-        "--format",
-        format,
-    ]
+    [crosscheck_args(log), vec!["--format", format]].concat()
 }
 
 /// (snapshot file, arguments, expected exit code).
