@@ -820,6 +820,8 @@ pub enum CrosscheckFormat {
     Table,
     Json,
     Markdown,
+    /// One self-contained page (report/html/crosscheck.rs)
+    Html,
 }
 
 #[derive(Debug, Args)]
@@ -919,6 +921,7 @@ fn run_crosscheck(c: CrosscheckArgs) -> Result<u8> {
         CrosscheckFormat::Table => report::crosscheck::render_table(&report),
         CrosscheckFormat::Json => report::crosscheck::render_json(&report),
         CrosscheckFormat::Markdown => report::crosscheck::render_markdown(&report),
+        CrosscheckFormat::Html => report::html::crosscheck(&report),
     };
     outputs.write(vec![(out, text)])?;
     Ok(if report.agree {

@@ -190,10 +190,7 @@ pub fn run(
         .map(|c| schema.headers[c - 1].clone())
         .collect();
     Ok(InspectReport {
-        tool: crate::report::Tool {
-            schema: "gradaudit.inspect/1",
-            ..crate::report::Tool::current()
-        },
+        tool: crate::report::Tool::with_schema("gradaudit.inspect/1"),
         file: reader.file().to_string(),
         rows: reader.rows(),
         episodes: returns.len() as u64,

@@ -251,12 +251,14 @@ pub fn read(reader: LogReader, cfg: &CheckConfig) -> Result<(Batch, Input)> {
         episodes.push(ep);
     }
     let input = Input {
-        file: file.clone(),
-        rows: reader.rows(),
-        episodes: episodes.len() as u64,
-        steps: episodes.iter().map(|e| e.len() as u64).sum(),
-        terminated: episodes.iter().filter(|e| e.end == End::Terminated).count() as u64,
-        truncated: episodes.iter().filter(|e| e.end != End::Terminated).count() as u64,
+        log: crate::report::LogCounts {
+            file: file.clone(),
+            rows: reader.rows(),
+            episodes: episodes.len() as u64,
+            steps: episodes.iter().map(|e| e.len() as u64).sum(),
+            terminated: episodes.iter().filter(|e| e.end == End::Terminated).count() as u64,
+            truncated: episodes.iter().filter(|e| e.end != End::Terminated).count() as u64,
+        },
         environments: environments(&episodes),
         warnings: reader.warnings().clone(),
     };
