@@ -255,9 +255,8 @@ struct Ids {
 }
 
 impl Ids {
-    /// Bytes held per episode besides the id's own bytes: its end offset, its parsed value,
-    /// and during sorting its index and a visited flag.
-    const PER_EPISODE: u128 = 8 + 16 + 8 + 1;
+    /// Bytes held per episode during sorting: its index and a visited flag.
+    const SORT_BYTES: u64 = 8 + 1;
 
     fn push(&mut self, key: &[u8]) {
         self.bytes.extend_from_slice(key);
@@ -267,6 +266,31 @@ impl Ids {
 
     fn len(&self) -> usize {
         self.ends.len()
+    }
+
+    /// Bytes the three buffers hold (their capacity).
+    fn heap_bytes(&self) -> u64 {
+        (self.bytes.capacity() + 8 * self.ends.capacity() + 16 * self.numbers.capacity()) as u64
+    }
+
+    /// [`Ids::push`], first charging the buffers' growth to `charge` (which also holds
+    /// `base` bytes of other buffers).
+    fn push_charged(
+        &mut self,
+        key: &[u8],
+        charge: &mut crate::limits::Charge,
+        base: u64,
+        what: &dyn Fn() -> String,
+        fix: &str,
+    ) -> Result<()> {
+        let rest = base + self.heap_bytes() - self.bytes.capacity() as u64;
+        charge.reserve(&mut self.bytes, key.len(), rest, what, fix)?;
+        let rest = base + self.heap_bytes() - 8 * self.ends.capacity() as u64;
+        charge.reserve(&mut self.ends, 1, rest, what, fix)?;
+        let rest = base + self.heap_bytes() - 16 * self.numbers.capacity() as u64;
+        charge.reserve(&mut self.numbers, 1, rest, what, fix)?;
+        self.push(key);
+        Ok(())
     }
 
     fn get(&self, i: usize) -> &[u8] {
@@ -296,6 +320,8 @@ pub struct Collected {
     pub contrib: Array2<f64>,
     pub input: InputSummary,
     pub warnings: crate::warnings::Warnings,
+    /// What the rows and the resampling to come hold on the budget's ledger, until dropped.
+    _held: [crate::limits::Charge; 2],
 }
 
 /// Bytes of one resampled row (a replicate or a half split): the mean row, and its
@@ -366,7 +392,7 @@ where
         .map(|path| crate::critic::net::ValueCritic::load(path, reader.schema()))
         .transpose()?;
     let mut clip = scores.clip.clone();
-    let mut scorer = Scorer::new(scores);
+    let mut scorer = Scorer::new(scores).with_budget(&cfg.budget);
     while let Some(mut ep) = scorer.next(&mut reader)? {
         if let Some(c) = &mut clip {
             c.push(&ep);
@@ -428,41 +454,51 @@ pub fn collect(
 ) -> Result<Collected> {
     let width = plan.width();
     let fixed = check_resampled(plan, cfg)?;
-    // Per episode: its contribution row, its id, and its share of the resampling scratch.
-    let per_episode = 8 * width as u128 + Ids::PER_EPISODE + crate::resample::scratch_bytes(1);
+    // On the budget's one ledger (with the reader's blocks, open episodes and finished ids):
+    // the resampled rows and each episode's share of the resampling scratch, and the
+    // summaries (contribution rows and ids, at their buffers' capacity).
+    let mut resampling = cfg.budget.charge(crate::limits::Holder::Resampling);
+    let mut summaries = cfg.budget.charge(crate::limits::Holder::Summaries);
+    let scratch = crate::resample::scratch_bytes(1) as u64;
+    let fixed = u64::try_from(fixed).unwrap_or(u64::MAX);
+    let fix = "audit fewer estimators, use fewer --resamples, or raise --max-memory";
     let mut ids = Ids::default();
     let mut flat: Vec<f64> = Vec::new();
     let pass = pass(reader, plan, cfg, scores, |key, row, input| {
-        let n = ids.len() as u128 + 1;
-        let need = fixed
-            .saturating_add(n.saturating_mul(per_episode))
-            .saturating_add((ids.bytes.len() + key.len()) as u128);
-        cfg.budget.check(
-            need,
-            || {
-                format!(
-                    "{}: {n} episodes x {width} summary columns (plus {} resampled rows)",
-                    input.file,
-                    cfg.resamples as u128 + 2 * cfg.splits as u128
-                )
-            },
-            "audit fewer estimators, use fewer --resamples, or raise --max-memory",
-        )?;
+        let n = ids.len() as u64 + 1;
+        let what = || {
+            format!(
+                "{}: {n} episodes x {width} summary columns (plus {} resampled rows)",
+                input.file,
+                cfg.resamples as u128 + 2 * cfg.splits as u128
+            )
+        };
+        resampling.set(fixed.saturating_add(n.saturating_mul(scratch)), what, fix)?;
+        summaries.reserve(&mut flat, width, ids.heap_bytes(), what, fix)?;
+        ids.push_charged(key, &mut summaries, 8 * flat.capacity() as u64, &what, fix)?;
         flat.extend_from_slice(row);
-        ids.push(key);
         Ok(())
     })?;
     let n = ids.len();
     check_episodes(n, &pass.input.file)?;
-    // Canonical order, so the same episodes in another row order give identical numbers.
+    // Canonical order, so the same episodes in another row order give identical numbers;
+    // the sort holds an index and a visited flag per episode.
+    summaries.set(
+        summaries.bytes() + Ids::SORT_BYTES * n as u64,
+        || format!("{}: sorting {n} episodes by id", pass.input.file),
+        fix,
+    )?;
     let order = ids.order();
     drop(ids);
     permute_rows(&mut flat, width, &order);
+    drop(order);
+    summaries.force(8 * flat.capacity() as u64);
     let contrib = Array2::from_shape_vec((n, width), flat).expect("n x width values");
     Ok(Collected {
         contrib,
         input: pass.input,
         warnings: pass.warnings,
+        _held: [resampling, summaries],
     })
 }
 

@@ -108,8 +108,8 @@ pub struct LogArgs {
     pub delimiter: String,
 
     /// Read role ROLE from column HEADER (repeatable). Roles: episode, step, reward,
-    /// terminated, truncated, done, value, next_value, q, logp; and score, obs, act for a
-    /// list column of a Parquet or Arrow file
+    /// terminated, truncated, done, value, next_value, q, logp; and score, obs, act, next_obs
+    /// for a list column of a Parquet or Arrow file
     #[arg(long = "col", value_name = "ROLE=HEADER")]
     pub columns: Vec<String>,
 
@@ -125,6 +125,11 @@ pub struct LogArgs {
     #[arg(long, default_value = "act_", value_name = "PREFIX")]
     pub act_prefix: String,
 
+    /// Header prefix of the next-observation columns (the obs after each step, for a value
+    /// network's bootstrap). Default: next_ followed by the obs prefix (next_obs_0, ...)
+    #[arg(long, value_name = "PREFIX")]
+    pub next_obs_prefix: Option<String>,
+
     /// No progress bar (it is shown only when stderr is a terminal anyway)
     #[arg(long, short)]
     pub quiet: bool,
@@ -133,6 +138,11 @@ pub struct LogArgs {
     /// resamples after). Default: 80% of the memory available when the run starts
     #[arg(long, value_name = "MB")]
     pub max_memory: Option<u64>,
+
+    /// The run's one budget, made on first use: every holder of the run (the reader, the
+    /// command's summaries) charges its one ledger.
+    #[arg(skip)]
+    pub ledger: std::sync::OnceLock<crate::limits::Budget>,
 }
 
 #[derive(Debug, Clone, Copy, ValueEnum)]
@@ -446,6 +456,7 @@ impl LogArgs {
         columns.score_prefix = self.score_prefix.clone();
         columns.obs_prefix = self.obs_prefix.clone();
         columns.act_prefix = self.act_prefix.clone();
+        columns.next_obs_prefix = self.next_obs_prefix.clone();
         columns.env = self.env_col.clone();
         Ok(ReadOptions {
             delimiter,
@@ -461,10 +472,14 @@ impl LogArgs {
 
     /// The memory budget: --max-memory (at most the machine's memory), else the default.
     pub fn budget(&self) -> Result<crate::limits::Budget> {
-        self.max_memory.map_or_else(
+        if let Some(b) = self.ledger.get() {
+            return Ok(b.clone());
+        }
+        let b = self.max_memory.map_or_else(
             || Ok(crate::limits::Budget::default()),
             crate::limits::Budget::from_option,
-        )
+        )?;
+        Ok(self.ledger.get_or_init(|| b).clone())
     }
 
     /// The first pass of --fit-value: fits a critic on the log (which must be a file: it is
@@ -829,6 +844,8 @@ pub enum CrosscheckFormat {
     Table,
     Json,
     Markdown,
+    /// One self-contained page (report/html/crosscheck.rs)
+    Html,
 }
 
 #[derive(Debug, Args)]
@@ -928,6 +945,7 @@ fn run_crosscheck(c: CrosscheckArgs) -> Result<u8> {
         CrosscheckFormat::Table => report::crosscheck::render_table(&report),
         CrosscheckFormat::Json => report::crosscheck::render_json(&report),
         CrosscheckFormat::Markdown => report::crosscheck::render_markdown(&report),
+        CrosscheckFormat::Html => report::html::crosscheck(&report),
     };
     outputs.write(vec![(out, text)])?;
     Ok(if report.agree {

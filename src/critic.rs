@@ -9,8 +9,9 @@
 //! time limit T, tau = (T - t) / T, is affine in t, so [t, t^2] span the same functions as
 //! [tau, tau^2] without knowing T in advance (the fit is solved in standardised coordinates,
 //! an exact reparametrisation, so the scale of t does not hurt its conditioning). The bootstrap
-//! value of a truncated episode is the fitted value at its last observed state with the time
-//! after its last step (logs hold no next-state features).
+//! value of a truncated episode is the fitted value at the time after its last step, at the
+//! logged next observation s_T when the log has one (`Episode::next_obs`), else at its last
+//! observed state s_{T-1}.
 //!
 //! Fitting is one streaming pass (per-fold sums X^T X and X^T y only) and applying it another:
 //! the caller reads the log twice.
@@ -28,7 +29,7 @@ use serde::Serialize;
 pub mod exact;
 
 /// How to fit.
-#[derive(Debug, Clone, Copy, PartialEq)]
+#[derive(Debug, Clone, PartialEq)]
 pub struct FitConfig {
     pub folds: usize,
     /// Ridge penalty as a fraction of the mean diagonal of X^T X.
@@ -205,7 +206,7 @@ impl FoldSums {
 
 /// Refuses fold counts and feature counts whose sums and solves exceed the budget, before
 /// allocating them (a count like 2^64 - 1 would otherwise overflow a capacity).
-fn check_size(folds: usize, p: usize, budget: crate::limits::Budget) -> Result<()> {
+fn check_size(folds: usize, p: usize, budget: &crate::limits::Budget) -> Result<()> {
     use crate::limits::bytes;
     let entries = bytes(p as u128, p as u128 + 1) / 2 + p as u128;
     // The fold sums, their total, one complement, the fitted weights and three p x p matrices.
@@ -227,7 +228,7 @@ pub fn fit(mut reader: LogReader, cfg: &FitConfig) -> Result<Critic> {
     let obs_dim = reader.schema().obs.len();
     let p = 2 * obs_dim + 3;
     let folds = cfg.folds.max(1);
-    check_size(folds, p, cfg.budget)?;
+    check_size(folds, p, &cfg.budget)?;
     let mut sums = vec![FoldSums::new(p); folds];
     let (mut g, mut phi) = (Vec::new(), Vec::new());
     let (mut xtx, mut xty) = (vec![0.0; p * (p + 1) / 2], vec![0.0; p]);
@@ -347,8 +348,16 @@ impl Critic {
         if let End::Truncated { .. } = ep.end
             && !ep.is_empty()
         {
-            // The last observed state, at the time after the last step.
+            // The logged next state, else the last observed one, at the time after the last
+            // step.
             features(ep, ep.len() - 1, &mut phi);
+            if let Some(next) = ep.next_obs.as_deref().filter(|x| x.len() == ep.obs_dim) {
+                let d = ep.obs_dim;
+                phi[1..=d].copy_from_slice(next);
+                for (k, x) in next.iter().enumerate() {
+                    phi[1 + d + k] = x * x;
+                }
+            }
             let (n, t) = (phi.len(), ep.len() as f64);
             phi[n - 2] = t;
             phi[n - 1] = t * t;

@@ -39,6 +39,10 @@ pub struct Episode {
     pub obs: Vec<f64>,
     pub act_dim: usize,
     pub act: Vec<f64>,
+    /// The logged observation after the last step (the last row's next-observation columns,
+    /// `obs_dim` values), when the log has them: the state s_T a truncated episode's
+    /// bootstrap value V(s_T) is taken at. Only the last row's is kept.
+    pub next_obs: Option<Vec<f64>>,
     pub end: End,
     /// The environment of a vector-environment layout (`--env-col`), None otherwise.
     pub env: Option<String>,
@@ -72,6 +76,7 @@ impl Episode {
             obs: Vec::new(),
             act_dim: layout.act_dim,
             act: Vec::new(),
+            next_obs: None,
             end: End::Terminated,
             env: None,
         }
@@ -120,6 +125,8 @@ pub struct Layout {
     pub score_dim: usize,
     pub obs_dim: usize,
     pub act_dim: usize,
+    /// Width of the next observation of each row (0: the log has none).
+    pub next_obs_dim: usize,
     /// Headers of the logged per-step columns carried as they are (see `Episode::logged`).
     pub logged: std::sync::Arc<[String]>,
 }

@@ -113,6 +113,10 @@ pub struct InspectReport {
     pub columns: Vec<Assignment>,
     /// How the end flags were read (the convention and the columns that decided it).
     pub end_flags: crate::log::EndFlags,
+    /// Where a value network (`--value-net`) takes the bootstrap state of truncated episodes:
+    /// the logged next observation, or the last observation; shown for logs with obs columns.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub bootstrap_state: Option<String>,
     /// Header columns that got no role and are ignored.
     pub unused_columns: Vec<String>,
     /// Discount of the returns the critic quality refers to.
@@ -136,7 +140,8 @@ pub fn run(
         Vec::new(),
     );
     let mut lengths: BTreeMap<u64, u64> = BTreeMap::new();
-    let mut returns = Vec::new();
+    let mut returns: Vec<f64> = Vec::new();
+    let (mut held, mut returns_len) = (budget.charge(crate::limits::Holder::Summaries), 0);
     let (mut terminated, mut truncated, mut boot, mut steps) = (0, 0, 0, 0u64);
     while let Some(mut ep) = reader.next_episode()? {
         recorded.push_episode(&ep, gamma, &mut buf);
@@ -146,22 +151,25 @@ pub fn run(
         }
         *lengths.entry(ep.len() as u64).or_insert(0) += 1;
         steps += ep.len() as u64;
-        // The returns (for the exact median) and the length histogram (a BTreeMap node of
-        // about 16 bytes per distinct length, plus overhead).
-        let need = crate::limits::bytes(returns.len() as u128 + 1, 8)
-            + crate::limits::bytes(lengths.len() as u128, 64);
-        budget.check(
-            need,
+        // The returns (for the exact median; their vector's capacity, as it grows) and the
+        // length histogram (a BTreeMap node of about 16 bytes per distinct length, plus
+        // overhead), on the ledger the reader charges too.
+        let histogram = 64 * lengths.len() as u64;
+        held.reserve(
+            &mut returns,
+            1,
+            histogram,
             || {
                 format!(
                     "{}: the returns of {} episodes (kept for the exact median)",
                     reader.file(),
-                    returns.len() + 1
+                    returns_len + 1
                 )
             },
             "raise --max-memory",
         )?;
         returns.push(ep.total_reward());
+        returns_len = returns.len();
         match ep.end {
             End::Terminated => terminated += 1,
             End::Truncated { bootstrap } => {
@@ -182,10 +190,7 @@ pub fn run(
         .map(|c| schema.headers[c - 1].clone())
         .collect();
     Ok(InspectReport {
-        tool: crate::report::Tool {
-            schema: "gradaudit.inspect/1",
-            ..crate::report::Tool::current()
-        },
+        tool: crate::report::Tool::with_schema("gradaudit.inspect/1"),
         file: reader.file().to_string(),
         rows: reader.rows(),
         episodes: returns.len() as u64,
@@ -200,6 +205,8 @@ pub fn run(
         act_dim: schema.act.len(),
         columns,
         end_flags: schema.end_flags(),
+        bootstrap_state: (!schema.obs.is_empty() || !schema.next_obs.is_empty())
+            .then(|| crate::critic::net::bootstrap_state(schema)),
         unused_columns,
         gamma,
         critic: crate::critic::CriticQuality {

@@ -28,5 +28,7 @@ pub mod shard;
 pub mod sketch;
 pub mod stats;
 pub mod sweep;
+#[doc(hidden)]
+pub mod testing;
 #[cfg(test)]
 mod testkit;

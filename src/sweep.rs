@@ -350,10 +350,7 @@ pub fn run(reader: LogReader, cfg: &SweepConfig) -> Result<SweepReport> {
         .collect();
     let choice = choose(&points, cfg.over);
     Ok(SweepReport {
-        tool: Tool {
-            schema: "gradaudit.sweep/1",
-            ..Tool::current()
-        },
+        tool: Tool::with_schema("gradaudit.sweep/1"),
         input: data.input,
         settings: SweepSettings {
             over: cfg.over,

@@ -131,6 +131,9 @@ pub struct Scorer<'a> {
     scores: &'a Scores,
     queue: VecDeque<Episode>,
     done: bool,
+    /// The batch's bytes on the budget's ledger, and the floats a batch may hold.
+    charge: Option<crate::limits::Charge>,
+    batch_floats: usize,
 }
 
 impl<'a> Scorer<'a> {
@@ -139,7 +142,16 @@ impl<'a> Scorer<'a> {
             scores,
             queue: VecDeque::new(),
             done: false,
+            charge: None,
+            batch_floats: BATCH_FLOATS,
         }
+    }
+
+    /// Charges the batches to `budget`'s ledger; a batch takes at most an eighth of it.
+    pub fn with_budget(mut self, budget: &crate::limits::Budget) -> Scorer<'a> {
+        self.batch_floats = BATCH_FLOATS.min((budget.bytes / 64) as usize).max(1);
+        self.charge = Some(budget.charge(crate::limits::Holder::Scoring));
+        self
     }
 
     /// The next episode with its scores, or None at the end of the log.
@@ -162,6 +174,10 @@ impl<'a> Scorer<'a> {
             + 1;
         let mut batch = Vec::new();
         let mut floats = 0;
+        // The last batch has been handed out (and its episodes dropped by the caller).
+        if let Some(c) = &mut self.charge {
+            c.force(0);
+        }
         loop {
             match reader.next_episode()? {
                 None => {
@@ -171,8 +187,16 @@ impl<'a> Scorer<'a> {
                 Some(ep) => {
                     floats += ep.len() * per_step;
                     batch.push(ep);
-                    if !computed || floats >= BATCH_FLOATS {
+                    if !computed || floats >= self.batch_floats {
                         break;
+                    }
+                    if let Some(c) = &mut self.charge {
+                        let n = batch.len();
+                        c.set(
+                            8 * floats as u64,
+                            || format!("{n} episodes read ahead to compute their scores"),
+                            "raise --max-memory",
+                        )?;
                     }
                 }
             }

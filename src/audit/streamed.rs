@@ -32,9 +32,6 @@ pub struct Partial {
 /// How the noise scale's interval is formed here (the multinomial audit's is BCa).
 const BC_NOTE: &str = "BC interval: the Poisson sums keep no per-episode rows for the acceleration";
 
-/// Bytes held per episode: its id hash.
-const PER_EPISODE: u128 = 16;
-
 /// Reads every episode into the Poisson sums. Fails when the sums (with the id hashes so far)
 /// would exceed the memory budget.
 pub fn accumulate(
@@ -44,31 +41,31 @@ pub fn accumulate(
 ) -> Result<Partial> {
     let width = prep.plan.width();
     let fixed = PoissonSums::bytes(cfg.resamples, cfg.splits, width);
-    let check = |n: u128| {
-        cfg.budget.check(
-            fixed.saturating_add(n.saturating_mul(PER_EPISODE)),
-            || {
-                format!(
-                    "--resamples {} and --splits {}: Poisson sums of {} rows x {width} summary \
-                     columns, and {n} episode id hashes",
-                    cfg.resamples,
-                    cfg.splits,
-                    1 + cfg.resamples + 2 * cfg.splits
-                )
-            },
-            "use fewer --resamples or --splits, audit fewer estimators, or raise --max-memory",
-        )
+    let what = |n: usize| {
+        move || {
+            format!(
+                "--resamples {} and --splits {}: Poisson sums of {} rows x {width} summary \
+                 columns, and {n} episode id hashes",
+                cfg.resamples,
+                cfg.splits,
+                1 + cfg.resamples + 2 * cfg.splits
+            )
+        }
     };
-    check(0)?;
+    let fix = "use fewer --resamples or --splits, audit fewer estimators, or raise --max-memory";
+    // On the budget's one ledger, with what the reader holds: the sums, then the id hashes.
+    cfg.budget.check(fixed, what(0), fix)?;
+    let mut sums_charge = cfg.budget.charge(crate::limits::Holder::Resampling);
+    sums_charge.set(u64::try_from(fixed).unwrap_or(u64::MAX), what(0), fix)?;
+    let mut hashes_charge = cfg.budget.charge(crate::limits::Holder::Summaries);
     let mut sums = PoissonSums::new(cfg.seed, cfg.resamples, cfg.splits, width);
-    let mut hashes = Vec::new();
+    let mut hashes: Vec<u128> = Vec::new();
     let pass = pass(reader, &prep.plan, cfg, &prep.scores, |key, row, _| {
         let h = id_hash(key);
         sums.push(h, row);
+        let n = hashes.len() + 1;
+        hashes_charge.reserve(&mut hashes, 1, 0, what(n), fix)?;
         hashes.push(h);
-        if hashes.len() % 4096 == 0 {
-            check(hashes.len() as u128)?;
-        }
         Ok(())
     })?;
     sums.flush();

@@ -555,7 +555,7 @@ fn the_contribution_matrix_respects_the_memory_budget() {
     }
     // Few resampled rows, so that the episodes' rows (not the replicates) cross the budget.
     let c = AuditConfig {
-        budget: crate::limits::Budget { bytes: 8192 },
+        budget: crate::limits::Budget::from_bytes(8192),
         resamples: 2,
         splits: 1,
         ..AuditConfig::default()

@@ -110,3 +110,37 @@ fn folds_do_not_depend_on_row_order() {
     });
     assert!(counts.iter().all(|&c| c > 150), "{counts:?}");
 }
+
+// Source: the feature map phi(s, t) = [1, s, s^2, t, t^2] of the module header, evaluated by
+// hand. With weights w = (0.5, 1, -1, 0.25, 0, 0.1, 0.01) on a 2-D state, a truncated 2-step
+// episode bootstraps at t = 2: with the logged next state s_T = (2, 3),
+// 0.5 + 2 - 3 + 0.25 * 4 + 0.1 * 2 + 0.01 * 4 = 0.74; without it, at the last state (1, -1),
+// 0.5 + 1 + 1 + 0.25 + 0.2 + 0.04 = 2.99.
+#[test]
+fn the_fitted_bootstrap_uses_the_logged_next_state_when_there_is_one() {
+    let w = vec![0.5, 1.0, -1.0, 0.25, 0.0, 0.1, 0.01];
+    let critic = Critic {
+        weights: vec![w],
+        folds: 1,
+        in_sample: true,
+        obs_dim: 2,
+    };
+    let layout = crate::episode::Layout {
+        obs_dim: 2,
+        ..Default::default()
+    };
+    let mut ep = Episode::new("e".into(), 2, &layout);
+    ep.rewards = vec![0.0, 0.0];
+    ep.obs = vec![0.0, 0.0, 1.0, -1.0];
+    ep.end = End::Truncated { bootstrap: None };
+    let mut without = ep.clone();
+    ep.next_obs = Some(vec![2.0, 3.0]);
+    critic.apply(&mut ep);
+    critic.apply(&mut without);
+    let boot = |e: &Episode| match e.end {
+        End::Truncated { bootstrap } => bootstrap.unwrap(),
+        End::Terminated => panic!("still truncated"),
+    };
+    assert!((boot(&ep) - 0.74).abs() < 1e-12, "{}", boot(&ep));
+    assert!((boot(&without) - 2.99).abs() < 1e-12, "{}", boot(&without));
+}

@@ -214,6 +214,7 @@ pub fn read(reader: LogReader, cfg: &CheckConfig) -> Result<(Batch, Input)> {
     let mut reader = reader;
     let mut episodes = Vec::new();
     let mut held: u128 = 0;
+    let mut charge = cfg.budget.charge(crate::limits::Holder::Summaries);
     // Numbers held per step while checking: the episode's arrays and the logged columns, the
     // reference, tolerance and magnitudes of the column checked, and the catalogue's
     // candidate columns (measured: about 280 bytes a step, 195 MB for 703,000 steps).
@@ -236,8 +237,9 @@ pub fn read(reader: LogReader, cfg: &CheckConfig) -> Result<(Batch, Input)> {
         // Scores, observations and actions play no part in the check.
         (ep.scores, ep.obs, ep.act) = (Vec::new(), Vec::new(), Vec::new());
         held += width * 8 * ep.len() as u128;
-        cfg.budget.check(
-            held,
+        // On the budget's ledger, with the reader's blocks and its finished ids.
+        charge.set(
+            u64::try_from(held).unwrap_or(u64::MAX),
             || {
                 format!(
                     "the steps held by crosscheck ({} episodes so far)",
@@ -249,12 +251,14 @@ pub fn read(reader: LogReader, cfg: &CheckConfig) -> Result<(Batch, Input)> {
         episodes.push(ep);
     }
     let input = Input {
-        file: file.clone(),
-        rows: reader.rows(),
-        episodes: episodes.len() as u64,
-        steps: episodes.iter().map(|e| e.len() as u64).sum(),
-        terminated: episodes.iter().filter(|e| e.end == End::Terminated).count() as u64,
-        truncated: episodes.iter().filter(|e| e.end != End::Terminated).count() as u64,
+        log: crate::report::LogCounts {
+            file: file.clone(),
+            rows: reader.rows(),
+            episodes: episodes.len() as u64,
+            steps: episodes.iter().map(|e| e.len() as u64).sum(),
+            terminated: episodes.iter().filter(|e| e.end == End::Terminated).count() as u64,
+            truncated: episodes.iter().filter(|e| e.end != End::Terminated).count() as u64,
+        },
         environments: environments(&episodes),
         warnings: reader.warnings().clone(),
     };

@@ -6,17 +6,8 @@ use super::variants::{Link, chain};
 use super::*;
 use crate::episode::Layout;
 
-/// xorshift64*: numbers in [-1, 1).
-struct Rng(u64);
-impl Rng {
-    fn next(&mut self) -> f64 {
-        self.0 ^= self.0 >> 12;
-        self.0 ^= self.0 << 25;
-        self.0 ^= self.0 >> 27;
-        let x = self.0.wrapping_mul(0x2545_F491_4F6C_DD1D);
-        (x >> 11) as f64 / (1u64 << 53) as f64 * 2.0 - 1.0
-    }
-}
+/// Numbers in [-1, 1) from the shared test stream (`signed`).
+use crate::testing::XorShift as Rng;
 
 fn layout() -> Layout {
     Layout {
@@ -31,11 +22,11 @@ fn layout() -> Layout {
 fn episode(id: &str, env: Option<&str>, len: usize, truncated: bool, g: &mut Rng) -> Episode {
     let mut ep = Episode::new(id.into(), 0, &layout());
     ep.env = env.map(str::to_string);
-    ep.rewards = (0..len).map(|_| g.next()).collect();
-    ep.values = Some((0..len).map(|_| 3.0 * g.next()).collect());
+    ep.rewards = (0..len).map(|_| g.signed()).collect();
+    ep.values = Some((0..len).map(|_| 3.0 * g.signed()).collect());
     ep.end = if truncated {
         End::Truncated {
-            bootstrap: Some(2.0 + g.next()),
+            bootstrap: Some(2.0 + g.signed()),
         }
     } else {
         End::Terminated
@@ -297,10 +288,10 @@ fn float32_columns_raise_no_false_alarms() {
     let mut flagged = 0;
     let mut worst: f64 = 0.0;
     for k in 0..200 {
-        let scale = 10f64.powf(3.0 * g.next());
+        let scale = 10f64.powf(3.0 * g.signed());
         let mut eps = Vec::new();
         for e in 0..3 {
-            let len = 1 + ((g.next() + 1.0) * 200.0) as usize;
+            let len = 1 + ((g.signed() + 1.0) * 200.0) as usize;
             let mut ep = episode(&format!("{k}-{e}"), None, len, e == 1, &mut g);
             for r in &mut ep.rewards {
                 *r = (*r * scale) as f32 as f64;

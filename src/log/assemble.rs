@@ -18,7 +18,7 @@ use super::fields;
 use super::rows::{Parsed, Row};
 use crate::episode::{End, Episode, Layout};
 use crate::error::{Error, Position, Result};
-use crate::limits::Budget;
+use crate::limits::{Budget, Charge, Holder};
 use crate::warnings::Warnings;
 use std::collections::HashMap;
 
@@ -55,18 +55,23 @@ pub struct Assembler {
     shape: Shape,
     open: HashMap<Vec<u8>, Open>,
     /// 128-bit digests of finished episodes' ids ([`id_key`]) with the record that ended each
-    /// and its file, to detect a reused id: about 33 bytes per finished episode, counted
-    /// against the budget.
-    ended: HashMap<u128, (u64, u32)>,
+    /// and its file, to detect a reused id: about 33 bytes per bucket, charged to the
+    /// budget's ledger (`ended_charge`). In [`ENDED_SHARDS`] tables by the digest's top bits,
+    /// so that a table doubling holds its old copy for a sixteenth of the ids, not all.
+    ended: Vec<HashMap<u128, (u64, u32)>>,
+    /// Ids in `ended`, and the bytes of its tables.
+    ended_count: usize,
+    ended_bytes: u64,
     /// Vector-environment layout: the next run number of each environment.
     runs: HashMap<Vec<u8>, u64>,
     /// Files read so far (the last is the current one) and their record word ("line", "row").
     files: Vec<(String, &'static str)>,
     leftovers: Vec<Episode>,
-    /// Approximate bytes held by open episodes and by `ended`, against `budget`.
+    /// Approximate bytes held by open episodes (`held`, charged as `open_charge`) and by
+    /// `ended`, on the budget's one ledger with the reader's blocks and what the caller keeps.
     held: u64,
-    ended_bytes: u64,
-    budget: Budget,
+    open_charge: Charge,
+    ended_charge: Charge,
     pub warnings: Warnings,
     ends: EndCounts,
 }
@@ -102,13 +107,15 @@ impl Assembler {
         Assembler {
             shape,
             open: HashMap::new(),
-            ended: HashMap::new(),
+            ended: (0..ENDED_SHARDS).map(|_| HashMap::new()).collect(),
+            ended_count: 0,
+            ended_bytes: 0,
             runs: HashMap::new(),
             files: Vec::new(),
             leftovers: Vec::new(),
             held: 0,
-            ended_bytes: 0,
-            budget,
+            open_charge: budget.charge(Holder::OpenEpisodes),
+            ended_charge: budget.charge(Holder::FinishedIds),
             warnings,
             ends: EndCounts::default(),
         }
@@ -142,24 +149,43 @@ impl Assembler {
         }
         let l = &self.shape.layout;
         let w = l.score_dim + l.obs_dim + l.act_dim + l.logged.len();
-        // Each step holds its vector fields, up to four scalars and its line number.
+        // Each step holds its vector fields, up to four scalars and its line number (the next
+        // observation is kept for the last row only, and not counted per step).
         let step_bytes = 8 * (w as u64 + 5);
+        let w = w + l.next_obs_dim;
         let open_count = self.open.len();
         let open = self.open.get_mut(key).expect("opened above");
         check_step(self.shape.step_col, open, row, loc)?;
         open.last_step = row.step;
-        self.held += step_bytes;
-        if self.held + self.ended_bytes > self.budget.bytes {
-            return Err(over_budget(
-                self.budget,
-                open_count,
-                &open.episode,
-                row,
-                loc,
-            ));
+        // A new episode also holds its id, its entry in the table of open ones and its
+        // vectors' headers.
+        let fixed = if open.episode.rewards.is_empty() {
+            OPEN_BYTES + key.len() as u64
+        } else {
+            0
+        };
+        self.held += step_bytes + fixed;
+        let ep = &open.episode;
+        // Charged in steps of CHARGE_STEP, so that most rows do not touch the shared ledger.
+        if self.held > self.open_charge.bytes() {
+            self.open_charge
+                .set(
+                    self.held.next_multiple_of(CHARGE_STEP),
+                    || {
+                        format!(
+                            "open episodes ({open_count} open; '{}' has {} steps so far)",
+                            fields::shown(ep.id.as_bytes()),
+                            ep.rewards.len() + 1
+                        )
+                    },
+                    "check that every episode's last row sets terminated or truncated, or raise \
+                     --max-memory",
+                )
+                .map_err(|e| Error::input(loc.at(row.line, None), e.to_string()))?;
         }
         let ep = &mut open.episode;
-        push_step(ep, row, &block.vectors[i * w..(i + 1) * w]);
+        let next_obs_dim = self.shape.layout.next_obs_dim;
+        push_step(ep, row, &block.vectors[i * w..(i + 1) * w], next_obs_dim);
         ep.lines.push(row.line);
         if !(row.terminated || row.truncated) {
             // Remember the last row's bootstrap in case the log ends mid-episode.
@@ -180,7 +206,11 @@ impl Assembler {
             }
         };
         let done = self.open.remove(key).expect("open above").episode;
-        self.held -= step_bytes * done.len() as u64;
+        self.held -= step_bytes * done.len() as u64 + OPEN_BYTES + key.len() as u64;
+        if self.held + 2 * CHARGE_STEP < self.open_charge.bytes() {
+            self.open_charge
+                .force(self.held.next_multiple_of(CHARGE_STEP));
+        }
         if self.shape.vector_env {
             *self.runs.entry(key.to_vec()).or_insert(0) += 1;
         } else {
@@ -202,7 +232,8 @@ impl Assembler {
         } else {
             // An open id cannot have ended (ending removes it from `open`), so only a row
             // starting an episode looks in `ended`.
-            if let Some(&(end_line, file)) = self.ended.get(&id_key(key)) {
+            let k = id_key(key);
+            if let Some(&(end_line, file)) = self.ended[shard(k)].get(&k) {
                 let place = if file == self.file_index() {
                     loc.place(end_line)
                 } else {
@@ -248,30 +279,34 @@ impl Assembler {
         )
     }
 
-    /// Records a finished id, checking the table's growth against the budget first.
+    /// Records a finished id, charging the table's growth to the ledger first.
     fn remember_end(&mut self, key: &[u8], line: u64, loc: &dyn Locate) -> Result<()> {
-        if self.ended.len() == self.ended.capacity() {
+        let (k, file) = (id_key(key), self.file_index());
+        let table = &mut self.ended[shard(k)];
+        if table.len() == table.capacity() {
             // Growing allocates the doubled table while the old one is still held.
-            let now = table_bytes(self.ended.capacity());
-            let grown = table_bytes(self.ended.capacity().max(3) * 2);
-            if self.held + now + grown > self.budget.bytes {
-                return Err(Error::input_hint(
-                    loc.at(line, None),
-                    format!(
-                        "the ids of {} finished episodes (kept to detect a reused id, about 33 \
-                         bytes each) and the open episodes need more than the memory budget of \
-                         {} MB",
-                        self.ended.len() + 1,
-                        self.budget.mb()
-                    ),
-                    "raise --max-memory (about 80 bytes per finished episode at the table's \
-                     growth), or split the log",
-                ));
-            }
-            self.ended.reserve(1);
-            self.ended_bytes = table_bytes(self.ended.capacity());
+            let old = table_bytes(table.capacity());
+            let grown = table_bytes(table.capacity().max(3) * 2);
+            let n = self.ended_count + 1;
+            self.ended_charge
+                .set(
+                    self.ended_bytes + grown,
+                    || {
+                        format!(
+                            "the ids of {n} finished episodes (kept to detect a reused id, \
+                             about 33 bytes each at the table's growth)"
+                        )
+                    },
+                    "raise --max-memory (about 40 to 80 bytes per finished episode), or split \
+                     the log",
+                )
+                .map_err(|e| Error::input(loc.at(line, None), e.to_string()))?;
+            table.reserve(1);
+            self.ended_bytes = self.ended_bytes - old + table_bytes(table.capacity());
+            self.ended_charge.force(self.ended_bytes);
         }
-        self.ended.insert(id_key(key), (line, self.file_index()));
+        table.insert(k, (line, file));
+        self.ended_count += 1;
         Ok(())
     }
 
@@ -338,6 +373,14 @@ impl Assembler {
     }
 }
 
+/// Tables of finished ids ([`Assembler`]'s `ended`).
+const ENDED_SHARDS: usize = 16;
+
+/// The table of digest `k`: by its top 4 bits (uniform, as the digest is).
+fn shard(k: u128) -> usize {
+    (k >> 124) as usize % ENDED_SHARDS
+}
+
 /// Bytes of a hash table of `(u128, (u64, u32))` entries holding `capacity`: buckets (a power
 /// of two, at most 7/8 full) of 32 bytes plus one control byte each.
 fn table_bytes(capacity: usize) -> u64 {
@@ -348,28 +391,27 @@ fn table_bytes(capacity: usize) -> u64 {
     buckets * 33
 }
 
-fn over_budget(budget: Budget, open: usize, ep: &Episode, row: &Row, loc: &dyn Locate) -> Error {
-    Error::input_hint(
-        loc.at(row.line, None),
-        format!(
-            "open episodes hold more than the memory budget of {} MB ({open} episodes open; \
-             '{}' has {} steps so far)",
-            budget.mb(),
-            fields::shown(ep.id.as_bytes()),
-            ep.rewards.len() + 1
-        ),
-        "check that every episode's last row sets terminated or truncated, or raise \
-         --max-memory",
-    )
-}
+/// The open episodes' charge moves in steps of this many bytes.
+const CHARGE_STEP: u64 = 64 << 10;
 
-/// Appends a row's values (`v`: its scores, obs, act and logged columns) to its episode.
-fn push_step(ep: &mut Episode, row: &Row, v: &[f64]) {
+/// Bytes an open episode holds besides its steps: its entry in the table of open episodes
+/// and the headers of its vectors (its id's bytes are added).
+const OPEN_BYTES: u64 = (std::mem::size_of::<Open>() + std::mem::size_of::<Vec<u8>>() + 16) as u64;
+
+/// Appends a row's values (`v`: its scores, obs, act, next obs and logged columns) to its
+/// episode; the next observation replaces the previous row's.
+fn push_step(ep: &mut Episode, row: &Row, v: &[f64], next_obs_dim: usize) {
     let (d, o, a) = (ep.score_dim, ep.obs_dim, ep.act_dim);
     ep.scores.extend_from_slice(&v[..d]);
     ep.obs.extend_from_slice(&v[d..d + o]);
     ep.act.extend_from_slice(&v[d + o..d + o + a]);
-    ep.logged.extend_from_slice(&v[d + o + a..]);
+    let n = d + o + a + next_obs_dim;
+    if next_obs_dim > 0 {
+        let next = ep.next_obs.get_or_insert_with(Vec::new);
+        next.clear();
+        next.extend_from_slice(&v[d + o + a..n]);
+    }
+    ep.logged.extend_from_slice(&v[n..]);
     ep.rewards.push(row.reward);
     for (x, xs) in [
         (row.value, ep.values.as_mut()),

@@ -22,6 +22,11 @@ pub const BLOCK: usize = 4 << 20;
 /// Largest read asked of the source per call.
 const READ: usize = 1 << 20;
 
+/// Bytes of a parsed block per raw byte, at most, for sizing blocks: a short row (about 15
+/// bytes, e.g. `1234567,1,1,0.5`) parses into a row record of about 120 bytes plus 8 per
+/// vector field and its id.
+const PARSED: u64 = 10;
+
 /// Sizes that drive the reader: the target block, the read size, the longest record, and
 /// whether blocks are parsed ahead on a producer thread (otherwise inline, on demand).
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -34,17 +39,24 @@ pub struct Tuning {
 
 impl Tuning {
     /// The sizes for a memory budget: the blocks in flight (raw and parsed, see
-    /// `pipeline.rs`) stay within a quarter of it, and one record within an eighth (at most
-    /// [`crate::limits::MAX_RECORD_BYTES`]).
-    pub fn for_budget(budget: crate::limits::Budget) -> Tuning {
+    /// `pipeline.rs`) aim at a quarter of it, and one record within an eighth (at most
+    /// [`crate::limits::MAX_RECORD_BYTES`]). What they really hold is charged to the
+    /// budget's ledger as they fill ([`Chunker::with_budget`], `Parsed::settle`). Budgets too
+    /// small for 64 kB blocks on the producer thread parse smaller blocks inline.
+    pub fn for_budget(budget: &crate::limits::Budget) -> Tuning {
         let share = budget.bytes / crate::limits::READER_SHARE;
         let batch = super::pipeline::batch() as u64;
         // Raw blocks: one batch plus the buffer being filled (two blocks' worth); parsed
-        // blocks: 4 batches + 2, each up to about 3 times its raw bytes (an f64 per field).
-        let in_flight = (batch + 2) + 3 * (4 * batch + 2);
-        let block = (share / in_flight).clamp(64 << 10, BLOCK as u64) as usize;
+        // blocks: 4 batches + 2, each up to about PARSED times its raw bytes.
+        let in_flight = (batch + 2) + PARSED * (4 * batch + 2);
         let record = (budget.bytes / 8).min(crate::limits::MAX_RECORD_BYTES as u64) as usize;
-        Tuning::new(block, READ, record, true)
+        if share / in_flight >= 64 << 10 {
+            let block = (share / in_flight).min(BLOCK as u64) as usize;
+            return Tuning::new(block, READ, record, true);
+        }
+        // Inline: the buffer being filled, one block out and one pooled; up to three parsed.
+        let block = (share / (3 + 3 * PARSED)).clamp(4 << 10, 64 << 10) as usize;
+        Tuning::new(block, READ.min(block), record, false)
     }
 
     /// Small blocks parsed inline: for tests and fuzzing, where blocks must fall everywhere.
@@ -96,6 +108,8 @@ pub enum ChunkError {
         line: u64,
         limit: usize,
     },
+    /// The raw buffers would take the memory budget's ledger over its limit.
+    Budget(crate::error::Error),
 }
 
 pub struct Chunker {
@@ -108,6 +122,11 @@ pub struct Chunker {
     /// Buffers of parsed blocks, reused so that the hot loop allocates (and page-faults) no
     /// fresh memory after the first batch.
     pool: Vec<Vec<u8>>,
+    /// The raw buffers' capacity on the budget's ledger ([`Chunker::with_budget`]): the one
+    /// being filled, the pool, and the blocks handed out (`out` bytes) not yet recycled.
+    charge: Option<crate::limits::Charge>,
+    out: u64,
+    pooled: u64,
 }
 
 impl Chunker {
@@ -120,13 +139,45 @@ impl Chunker {
             delimiter,
             tuning,
             pool: Vec::new(),
+            charge: None,
+            out: 0,
+            pooled: 0,
         }
+    }
+
+    /// Charges the raw buffers to `budget`'s ledger as the reader's.
+    pub fn with_budget(mut self, budget: &crate::limits::Budget) -> Chunker {
+        self.charge = Some(budget.charge(crate::limits::Holder::Reader));
+        self
+    }
+
+    /// The budget charged, if any.
+    pub fn budget(&self) -> Option<&crate::limits::Budget> {
+        self.charge.as_ref().map(crate::limits::Charge::budget)
     }
 
     /// Returns a block's buffer for reuse.
     pub fn recycle(&mut self, mut bytes: Vec<u8>) {
         bytes.clear();
+        let cap = bytes.capacity() as u64;
+        self.out = self.out.saturating_sub(cap);
+        self.pooled += cap;
         self.pool.push(bytes);
+    }
+
+    /// Sets the charge to what the raw buffers hold now.
+    fn settle(&mut self) -> Result<(), ChunkError> {
+        let bytes = self.buf.capacity() as u64 + self.pooled + self.out;
+        match &mut self.charge {
+            Some(c) => c
+                .set(
+                    bytes,
+                    || "the reader's raw blocks".to_string(),
+                    "raise --max-memory (the reader sizes its blocks from it)",
+                )
+                .map_err(ChunkError::Budget),
+            None => Ok(()),
+        }
     }
 
     /// The rest of the underlying stream (to drain it after an error).
@@ -161,6 +212,8 @@ impl Chunker {
         let mut want = self.tuning.block;
         let (cut, tail) = loop {
             self.fill(want).map_err(ChunkError::Io)?;
+            // A long record grows the buffer: charged before it grows further.
+            self.settle()?;
             if self.buf.is_empty() {
                 return Ok(None);
             }
@@ -180,13 +233,18 @@ impl Chunker {
                 None => want = (self.buf.len() * 2).min(limit + 3),
             }
         };
-        let mut next = self
-            .pool
-            .pop()
-            .unwrap_or_else(|| Vec::with_capacity(self.tuning.block + self.tuning.read));
+        let mut next = match self.pool.pop() {
+            Some(b) => {
+                self.pooled -= b.capacity() as u64;
+                b
+            }
+            None => Vec::with_capacity(self.tuning.block + self.tuning.read),
+        };
         next.extend_from_slice(&self.buf[cut..]);
         self.buf.truncate(cut);
         let bytes = std::mem::replace(&mut self.buf, next);
+        self.out += bytes.capacity() as u64;
+        self.settle()?;
         let first_line = self.next_line;
         self.next_line += line_breaks(&bytes);
         Ok(Some(Block {
@@ -326,6 +384,30 @@ mod tests {
         Ok(out)
     }
 
+    // Blocks sized from the budget: the blocks in flight aim at a quarter of it (PARSED
+    // times the raw bytes for the parsed ones); budgets too small for 64 kB blocks on the
+    // producer thread parse 4 to 64 kB blocks inline.
+    #[test]
+    fn block_sizes_follow_the_budget() {
+        use crate::limits::Budget;
+        let batch = super::super::pipeline::batch() as u64;
+        let in_flight = (batch + 2) + PARSED * (4 * batch + 2);
+        let big = Tuning::for_budget(&Budget::from_mb(1000));
+        assert!(big.threaded);
+        assert_eq!(
+            big.block as u64,
+            ((1000 << 20) / 4 / in_flight).min(BLOCK as u64)
+        );
+        assert!(in_flight * big.block as u64 <= (1000 << 20) / 4);
+        let small = Tuning::for_budget(&Budget::from_mb(4));
+        assert!(!small.threaded);
+        assert!((4 << 10..=64 << 10).contains(&small.block));
+        assert!((3 + 3 * PARSED) * small.block as u64 <= 1 << 20);
+        assert_eq!(small.max_record, 512 << 10);
+        let tiny = Tuning::for_budget(&Budget::from_mb(0));
+        assert_eq!((tiny.threaded, tiny.block), (false, 4 << 10));
+    }
+
     #[test]
     fn blocks_reassemble_the_stream_and_count_lines() {
         let text: String = (0..400_000)
@@ -335,7 +417,7 @@ mod tests {
         let mut line = 1;
         for b in blocks(
             text.as_bytes(),
-            Tuning::for_budget(crate::limits::Budget::from_mb(1 << 20)),
+            Tuning::for_budget(&crate::limits::Budget::from_mb(1 << 20)),
         )
         .unwrap()
         {

@@ -4,12 +4,13 @@
 //!
 //! Scalar columns (integers, floats, booleans; ids may also be strings) map to roles by name
 //! as CSV headers do; a list column of numbers (variable or fixed size) maps to a vector role
-//! (score, obs, act). A variable list's width is taken from the first row, and every row must
+//! (score, obs, act, next_obs). A variable list's width is taken from the first row, and every row must
 //! have it. Positions are the row group (Parquet) or record batch (Arrow) and the row within
 //! it, both counted from 0 as the Arrow and Parquet tools count them.
 
 use super::assemble::Locate;
 use super::columns::{ColumnSpec, Role, Schema};
+use super::role_index::RoleIndex;
 use super::rows::{Parsed, Row};
 use super::source::Columnar;
 use crate::error::{Error, Position, Result};
@@ -74,19 +75,11 @@ impl Locate for Locator {
     }
 }
 
-/// Where each role's values are: batch column indices (the projected order) and, for the
-/// vector roles, one source per element in score, obs, act order, then the logged columns.
+/// Where each role's values are: the roles' batch columns (shared with the CSV reader) and
+/// the sources of the vector block, in its order (scores, obs, act, next obs, then the
+/// logged columns).
 struct Plan {
-    id: usize,
-    reward: usize,
-    step: Option<usize>,
-    terminated: Option<usize>,
-    truncated: Option<usize>,
-    done: Option<usize>,
-    value: Option<usize>,
-    next_value: Option<usize>,
-    q: Option<usize>,
-    logp: Option<usize>,
+    roles: RoleIndex,
     /// Per source of vector values: its column and, for a list column, its width.
     vectors: Vec<(usize, Option<usize>)>,
 }
@@ -122,7 +115,13 @@ pub fn open(
         .enumerate()
         .map(|(c, f)| list_width(f.data_type(), first.as_ref().map(|b| b.column(c))))
         .collect();
-    let schema_r = Schema::resolve_with_lists(spec, headers, &widths, file)?;
+    // A columnar file has no header line: its column errors name the file and the column.
+    let schema_r = Schema::resolve_with_lists(spec, headers, &widths, file).map_err(|mut e| {
+        if let Error::Input(i) = &mut e {
+            i.at.line = None;
+        }
+        e
+    })?;
     let plan = Plan::new(&schema_r, &schema, file)?;
     let mut element_of = Vec::new();
     for l in &schema_r.lists {
@@ -228,38 +227,38 @@ impl Plan {
         let role = |r: Role, f: &dyn Fn(&DataType) -> bool, want: &str| {
             s.column(r).map(|c| check(c, f(types[c]), want)).transpose()
         };
-        let id = s.id_column();
+        let roles = RoleIndex::new(s);
+        let id = roles.id;
         let id_ok = int(types[id])
             || matches!(
                 types[id],
                 DataType::Utf8 | DataType::LargeUtf8 | DataType::Utf8View | DataType::Binary
             );
+        // The block's element columns; a list column's elements (past the file's columns)
+        // are one source, read as the whole list.
         let mut vectors = Vec::new();
-        for cols in [&s.scores, &s.obs, &s.act] {
-            if let Some(l) = s.lists.iter().find(|l| Some(&l.first) == cols.first()) {
+        let mut k = 0;
+        while k < roles.vectors.len() {
+            let c = roles.vectors[k];
+            // (An empty list has no elements, and a later list may start at the same index.)
+            if let Some(l) = s.lists.iter().find(|l| l.first == c && l.width > 0) {
                 vectors.push((l.column, Some(l.width)));
+                k += l.width;
                 continue;
             }
-            for &c in cols.iter() {
-                vectors.push((check(c, num(types[c]), "numbers")?, None));
-            }
-        }
-        for &c in &s.logged {
             vectors.push((check(c, num(types[c]), "numbers")?, None));
+            k += 1;
         }
-        Ok(Plan {
-            id: check(id, id_ok, "integers or strings (an id)")?,
-            reward: role(Role::Reward, &num, "numbers")?.expect("a required role"),
-            step: role(Role::Step, &int, "integers (a step)")?,
-            terminated: role(Role::Terminated, &num, "flags")?,
-            truncated: role(Role::Truncated, &num, "flags")?,
-            done: role(Role::Done, &num, "flags")?,
-            value: role(Role::Value, &num, "numbers")?,
-            next_value: role(Role::NextValue, &num, "numbers")?,
-            q: role(Role::Q, &num, "numbers")?,
-            logp: role(Role::Logp, &num, "numbers")?,
-            vectors,
-        })
+        check(id, id_ok, "integers or strings (an id)")?;
+        role(Role::Reward, &num, "numbers")?;
+        role(Role::Step, &int, "integers (a step)")?;
+        for r in [Role::Terminated, Role::Truncated, Role::Done] {
+            role(r, &num, "flags")?;
+        }
+        for r in [Role::Value, Role::NextValue, Role::Q, Role::Logp] {
+            role(r, &num, "numbers")?;
+        }
+        Ok(Plan { roles, vectors })
     }
 }
 
@@ -425,7 +424,7 @@ impl Plan {
             logp: None,
         }));
         self.ids(
-            b.column(self.id),
+            b.column(self.roles.id),
             n,
             &mut first,
             &mut out.rows,
@@ -447,13 +446,13 @@ impl Plan {
     /// Reward, step, value, q, logp and the optional bootstrap value.
     fn scalars(&self, b: &RecordBatch, n: usize, first: &mut First, rows: &mut [Row]) {
         each_number(
-            b.column(self.reward).as_ref(),
-            self.reward,
+            b.column(self.roles.reward).as_ref(),
+            self.roles.reward,
             n,
             first,
             |r, x| rows[r].reward = x,
         );
-        if let Some(c) = self.step {
+        if let Some(c) = self.roles.step {
             let a = b.column(c);
             let nums = Nums::of(a.as_ref()).expect("type checked at open");
             let end = first.limit(n).min(n);
@@ -465,7 +464,11 @@ impl Plan {
                 }
             }
         }
-        for (col, which) in [(self.value, 0), (self.q, 1), (self.logp, 2)] {
+        for (col, which) in [
+            (self.roles.value, 0),
+            (self.roles.q, 1),
+            (self.roles.logp, 2),
+        ] {
             let Some(c) = col else { continue };
             each_number(b.column(c).as_ref(), c, n, first, |r, x| match which {
                 0 => rows[r].value = Some(x),
@@ -473,7 +476,7 @@ impl Plan {
                 _ => rows[r].logp = Some(x),
             });
         }
-        if let Some(c) = self.next_value {
+        if let Some(c) = self.roles.next_value {
             // An empty bootstrap (null) is allowed, as an empty CSV field is.
             let a = b.column(c);
             let nums = Nums::of(a.as_ref()).expect("type checked at open");
@@ -495,7 +498,7 @@ impl Plan {
     /// not truncated under the done convention.
     fn flags(&self, b: &RecordBatch, n: usize, first: &mut First, rows: &mut [Row]) {
         let mut flags: [Vec<bool>; 3] = Default::default();
-        for (k, col) in [self.terminated, self.truncated, self.done]
+        for (k, col) in [self.roles.terminated, self.roles.truncated, self.roles.done]
             .into_iter()
             .enumerate()
         {
@@ -526,7 +529,7 @@ impl Plan {
     }
 
     fn ids(&self, a: &ArrayRef, n: usize, first: &mut First, rows: &mut [Row], ids: &mut Vec<u8>) {
-        let c = self.id;
+        let c = self.roles.id;
         let is_text = text_at(a.as_ref(), 0).is_some() || a.is_empty();
         let nums = Nums::of(a.as_ref());
         for (r, row) in rows.iter_mut().enumerate().take(n) {
@@ -557,7 +560,7 @@ impl Plan {
         }
     }
 
-    /// The vector values, row-major: each row's scores, obs and act in schema order.
+    /// The vector values, row-major: each row's block in [`RoleIndex::vectors`] order.
     fn vectors(&self, b: &RecordBatch, n: usize, first: &mut First, out: &mut Vec<f64>) {
         let w: usize = self.vectors.iter().map(|v| v.1.unwrap_or(1)).sum();
         out.clear();

@@ -4,7 +4,8 @@
 use crate::error::{Error, Position, Result};
 use serde::Serialize;
 
-/// A single-column role. Vector roles (score, obs, act) are found by header prefix instead.
+/// A single-column role. Vector roles (score, obs, act, next_obs) are found by header prefix
+/// instead.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord, Serialize)]
 #[serde(rename_all = "snake_case")]
 pub enum Role {
@@ -93,19 +94,51 @@ pub enum VectorRole {
     Score,
     Obs,
     Act,
+    /// The observation after the step (the state s_{t+1} the environment returned), which a
+    /// value network reads for the bootstrap value of a truncated episode.
+    NextObs,
 }
 
+/// Number of vector roles.
+const VECTOR_ROLES: usize = 4;
+
 impl VectorRole {
-    pub const ALL: [VectorRole; 3] = [VectorRole::Score, VectorRole::Obs, VectorRole::Act];
+    pub const ALL: [VectorRole; VECTOR_ROLES] = [
+        VectorRole::Score,
+        VectorRole::Obs,
+        VectorRole::Act,
+        VectorRole::NextObs,
+    ];
 
     pub fn key(self) -> &'static str {
         match self {
             VectorRole::Score => "score",
             VectorRole::Obs => "obs",
             VectorRole::Act => "act",
+            VectorRole::NextObs => "next_obs",
+        }
+    }
+
+    /// The option naming the role's CSV header prefix.
+    fn prefix_flag(self) -> &'static str {
+        match self {
+            VectorRole::Score => "--score-prefix",
+            VectorRole::Obs => "--obs-prefix",
+            VectorRole::Act => "--act-prefix",
+            VectorRole::NextObs => "--next-obs-prefix",
         }
     }
 }
+
+/// Names a next-observation list column is found under without `--col next_obs=NAME`, after
+/// `next_obs` itself: the plural and singular forms of offline datasets, and the dotted form
+/// of robot datasets. `next.NAME` and `next_NAME` for an obs list column `NAME` are tried too.
+const NEXT_OBS_LISTS: [&str; 4] = [
+    "next_observations",
+    "next_observation",
+    "next.observation",
+    "next.observation.state",
+];
 
 /// What the user asked for: a header per role and a prefix per vector role.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -119,8 +152,11 @@ pub struct ColumnSpec {
     pub logged: Vec<String>,
     pub obs_prefix: String,
     pub act_prefix: String,
+    /// Header prefix of the next-observation columns; None: `next_` and the obs prefix
+    /// (`next_obs_0`, `next_obs_1`, ... by default).
+    pub next_obs_prefix: Option<String>,
     /// List columns named for the vector roles (`--col obs=robot.state`), by [`VectorRole`].
-    pub lists: [Option<String>; 3],
+    pub lists: [Option<String>; VECTOR_ROLES],
     /// The environment column of a vector-environment layout (`--env-col`): episode ids are
     /// then derived from runs within each environment instead of read.
     pub env: Option<String>,
@@ -135,7 +171,8 @@ impl Default for ColumnSpec {
             logged: Vec::new(),
             obs_prefix: "obs_".into(),
             act_prefix: "act_".into(),
-            lists: [None, None, None],
+            next_obs_prefix: None,
+            lists: [None, None, None, None],
             env: None,
         }
     }
@@ -157,8 +194,8 @@ impl ColumnSpec {
         let role = Role::parse(role.trim()).ok_or_else(|| {
             let names: Vec<_> = Role::ALL.iter().map(|r| r.key()).collect();
             format!(
-                "unknown column role '{role}'; roles are {} (and score, obs, act for a list \
-                 column of a Parquet or Arrow file)",
+                "unknown column role '{role}'; roles are {} (and score, obs, act, next_obs for \
+                 a list column of a Parquet or Arrow file)",
                 names.join(", ")
             )
         })?;
@@ -169,6 +206,19 @@ impl ColumnSpec {
 
     pub fn header(&self, role: Role) -> &str {
         &self.headers[role.index()]
+    }
+
+    /// The CSV header prefix of vector role `v`.
+    fn prefix(&self, v: VectorRole) -> String {
+        match v {
+            VectorRole::Score => self.score_prefix.clone(),
+            VectorRole::Obs => self.obs_prefix.clone(),
+            VectorRole::Act => self.act_prefix.clone(),
+            VectorRole::NextObs => self
+                .next_obs_prefix
+                .clone()
+                .unwrap_or_else(|| format!("next_{}", self.obs_prefix)),
+        }
     }
 }
 
@@ -204,6 +254,9 @@ pub struct Schema {
     pub logged: Vec<usize>,
     pub obs: Vec<usize>,
     pub act: Vec<usize>,
+    /// The observation after each step (as wide as `obs`, element k the next value of obs
+    /// element k), empty when the log has none.
+    pub next_obs: Vec<usize>,
     /// The environment column (`--env-col`), which then stands in for the episode id.
     pub env: Option<usize>,
     pub lists: Vec<ListColumn>,
@@ -291,6 +344,7 @@ impl Schema {
             scores: Vec::new(),
             obs: Vec::new(),
             act: Vec::new(),
+            next_obs: Vec::new(),
             env,
             lists: Vec::new(),
             end_note,
@@ -301,9 +355,70 @@ impl Schema {
                 VectorRole::Score => schema.scores = cols,
                 VectorRole::Obs => schema.obs = cols,
                 VectorRole::Act => schema.act = cols,
+                VectorRole::NextObs => schema.next_obs = cols,
             }
         }
+        schema.check_next_obs(spec, file)?;
         Ok(schema)
+    }
+
+    /// The next observation must be as wide as the observation, element for element: prefixed
+    /// columns of both carry the same indices (`obs_3` and `next_obs_3`).
+    fn check_next_obs(&self, spec: &ColumnSpec, file: &str) -> Result<()> {
+        if self.next_obs.is_empty() {
+            return Ok(());
+        }
+        let listed = |v: VectorRole| self.lists.iter().any(|l| l.role == v);
+        let (po, pn) = (
+            spec.prefix(VectorRole::Obs).len(),
+            spec.prefix(VectorRole::NextObs).len(),
+        );
+        let same = self.next_obs.len() == self.obs.len()
+            && (listed(VectorRole::Obs)
+                || listed(VectorRole::NextObs)
+                || self
+                    .obs
+                    .iter()
+                    .zip(&self.next_obs)
+                    .all(|(&o, &n)| self.headers[o][po..] == self.headers[n][pn..]));
+        if same {
+            return Ok(());
+        }
+        let span = |cols: &[usize]| match cols {
+            [] => "none".to_string(),
+            [c] => format!("'{}'", self.headers[*c]),
+            [a, .., b] => format!(
+                "'{}' .. '{}', {} values",
+                self.headers[*a],
+                self.headers[*b],
+                cols.len()
+            ),
+        };
+        let c = self.file_column(self.next_obs[0]);
+        Err(Error::input_hint(
+            Position {
+                file: file.to_string(),
+                line: Some(1),
+                column: Some((c + 1, self.headers[c].clone())),
+            },
+            format!(
+                "the next-observation columns ({}) do not match the obs columns ({}) element \
+                 for element",
+                span(&self.next_obs),
+                span(&self.obs)
+            ),
+            "the next observation is the obs vector one step later: log the same elements, or \
+             name the columns with --col next_obs=NAME or --next-obs-prefix, and --col obs=NAME \
+             or --obs-prefix",
+        ))
+    }
+
+    /// The file column of a header index: a list element's list column, else itself.
+    fn file_column(&self, c: usize) -> usize {
+        self.lists
+            .iter()
+            .find(|l| (l.first..l.first + l.width).contains(&c))
+            .map_or(c, |l| l.column)
     }
 
     /// A vector role's columns: one list column (Parquet, Arrow) or prefixed columns.
@@ -314,13 +429,14 @@ impl Schema {
         widths: &[Option<usize>],
         file: &str,
     ) -> Result<Vec<usize>> {
-        let prefix = match v {
-            VectorRole::Score => &spec.score_prefix,
-            VectorRole::Obs => &spec.obs_prefix,
-            VectorRole::Act => &spec.act_prefix,
-        };
+        let prefix = &spec.prefix(v);
         let explicit = spec.lists[v as usize].as_deref();
-        let name = explicit.unwrap_or(v.key());
+        let default = match v {
+            VectorRole::NextObs => self.next_obs_list(widths),
+            VectorRole::Obs | VectorRole::Act => self.plural_list(v, prefix, widths),
+            VectorRole::Score => v.key().to_string(),
+        };
+        let name = explicit.unwrap_or(&default);
         let at = |c: Option<usize>| Position {
             file: file.to_string(),
             line: Some(1),
@@ -333,9 +449,8 @@ impl Schema {
                     at(None),
                     format!("--col {}={name}: a CSV log has no list columns", v.key()),
                     format!(
-                        "in CSV give one column per element and name their prefix with \
-                         --{}-prefix",
-                        v.key()
+                        "in CSV give one column per element and name their prefix with {}",
+                        v.prefix_flag()
                     ),
                 ));
             }
@@ -376,13 +491,67 @@ impl Schema {
                     v.key()
                 ),
                 format!(
-                    "name the one to read: --col {}={name}, or --{}-prefix for the others",
+                    "name the one to read: --col {}={name}, or {} for the others",
                     v.key(),
-                    v.key()
+                    v.prefix_flag()
                 ),
             ));
         }
         self.add_list(v, c, widths[c].expect("a list column"), file)
+    }
+
+    /// The name a next-observation list column is looked for under: the first of `next_obs`,
+    /// [`NEXT_OBS_LISTS`], `next.NAME` and `next_NAME` (for an obs list column NAME) that is a
+    /// list column of the file, else `next_obs`.
+    fn next_obs_list(&self, widths: &[Option<usize>]) -> String {
+        let obs = self
+            .lists
+            .iter()
+            .find(|l| l.role == VectorRole::Obs)
+            .map(|l| self.headers[l.column].clone());
+        let mut names: Vec<String> = std::iter::once("next_obs")
+            .chain(NEXT_OBS_LISTS)
+            .map(String::from)
+            .collect();
+        if let Some(o) = obs {
+            names.extend([format!("next.{o}"), format!("next_{o}")]);
+        }
+        let is_list = |n: &String| {
+            self.headers[..self.real]
+                .iter()
+                .position(|h| h == n)
+                .is_some_and(|c| widths.get(c).copied().flatten().is_some())
+        };
+        names
+            .iter()
+            .find(|n| is_list(n))
+            .unwrap_or(&names[0])
+            .clone()
+    }
+
+    /// The list column obs or act is read from by default: its key, or the plural offline
+    /// datasets write (`observations`, `actions`) when that is a list column and no header
+    /// starts with the role's prefix (so a log that names both keeps reading its columns).
+    fn plural_list(&self, v: VectorRole, prefix: &str, widths: &[Option<usize>]) -> String {
+        let plural = match v {
+            VectorRole::Obs => "observations",
+            _ => "actions",
+        };
+        let key = v.key();
+        let list_at = |n: &str| {
+            self.headers[..self.real]
+                .iter()
+                .position(|h| h == n)
+                .is_some_and(|c| widths.get(c).copied().flatten().is_some())
+        };
+        let prefixed = self.headers[..self.real]
+            .iter()
+            .any(|h| h.starts_with(prefix));
+        if !list_at(key) && list_at(plural) && !prefixed {
+            plural.to_string()
+        } else {
+            key.to_string()
+        }
     }
 
     /// Adds list column `c` (lists of `width` numbers) as vector role `v`: its elements
@@ -525,6 +694,7 @@ impl Schema {
             (VectorRole::Score, &self.scores),
             (VectorRole::Obs, &self.obs),
             (VectorRole::Act, &self.act),
+            (VectorRole::NextObs, &self.next_obs),
         ] {
             if let Some(l) = self.lists.iter().find(|l| l.role == v) {
                 let mut a = one(v.key(), l.column, None);
@@ -832,6 +1002,81 @@ mod tests {
         );
         spec.remap("terminated=terminated").unwrap();
         assert!(Schema::resolve(&spec, both, "f").is_err());
+    }
+
+    // The next observation: prefixed columns after `next_` and the obs prefix, list columns
+    // under the trade's names or `next.NAME` for an obs list NAME, and a width check.
+    #[test]
+    fn next_observation_columns_and_lists() {
+        let h = hs(&[
+            "episode",
+            "reward",
+            "obs_0",
+            "obs_1",
+            "next_obs_1",
+            "next_obs_0",
+        ]);
+        let s = Schema::resolve(&ColumnSpec::default(), h, "f").unwrap();
+        assert_eq!(
+            (s.obs.clone(), s.next_obs.clone()),
+            (vec![2, 3], vec![5, 4])
+        );
+        let spec = ColumnSpec {
+            obs_prefix: "x".into(),
+            ..ColumnSpec::default()
+        };
+        let s = Schema::resolve(&spec, hs(&["episode", "reward", "x0", "next_x0"]), "f").unwrap();
+        assert_eq!(s.next_obs, vec![3]);
+        let h = hs(&[
+            "episode",
+            "reward",
+            "obs_0",
+            "obs_1",
+            "next_obs_0",
+            "next_obs_2",
+        ]);
+        let e = Schema::resolve(&ColumnSpec::default(), h, "f.csv").unwrap_err();
+        assert!(e.to_string().contains("column 5 ('next_obs_0')"), "{e}");
+        let mut spec = ColumnSpec::default();
+        spec.remap("obs=observation.state").unwrap();
+        let h = hs(&[
+            "episode",
+            "reward",
+            "observation.state",
+            "next.observation.state",
+        ]);
+        let s = Schema::resolve_with_lists(&spec, h.clone(), &[None, None, Some(2), Some(2)], "f")
+            .unwrap();
+        assert_eq!(s.next_obs, vec![6, 7]);
+        assert_eq!(s.headers[7], "next.observation.state[1]");
+        let e = Schema::resolve_with_lists(&spec, h, &[None, None, Some(2), Some(3)], "f.parquet")
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("column 4 ('next.observation.state')"), "{e}");
+        let h = hs(&["episode", "reward", "obs", "next_observations"]);
+        let s = Schema::resolve_with_lists(
+            &ColumnSpec::default(),
+            h,
+            &[None, None, Some(3), Some(3)],
+            "f",
+        )
+        .unwrap();
+        assert_eq!(s.next_obs.len(), 3);
+        // Offline datasets' plural list names, unless prefixed columns are there too.
+        let h = hs(&[
+            "episode",
+            "reward",
+            "observations",
+            "actions",
+            "next_observations",
+        ]);
+        let w = [None, None, Some(3), Some(2), Some(3)];
+        let s = Schema::resolve_with_lists(&ColumnSpec::default(), h, &w, "f").unwrap();
+        assert_eq!((s.obs.len(), s.act.len(), s.next_obs.len()), (3, 2, 3));
+        let h = hs(&["episode", "reward", "observations", "act_0"]);
+        let w = [None, None, Some(3), None];
+        let s = Schema::resolve_with_lists(&ColumnSpec::default(), h, &w, "f").unwrap();
+        assert_eq!((s.obs.len(), s.act.clone()), (3, vec![3]));
     }
 
     #[test]

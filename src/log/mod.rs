@@ -16,6 +16,7 @@ pub mod columnar;
 pub mod columns;
 pub mod fields;
 mod pipeline;
+pub mod role_index;
 pub mod rows;
 pub mod source;
 
@@ -72,6 +73,9 @@ impl Feed {
                     let mut parsed = spare.pop().unwrap_or_default();
                     parser.parse_into(&b.bytes, b.first_line, &mut parsed);
                     parsed.tail = b.tail;
+                    if let Some(budget) = c.budget() {
+                        parsed.settle(budget);
+                    }
                     c.recycle(b.bytes);
                     Some(Item::Block(parsed))
                 }
@@ -201,7 +205,7 @@ impl LogReader {
         options: &ReadOptions,
         bar: Option<ProgressBar>,
     ) -> Result<Self> {
-        let tuning = Tuning::for_budget(options.budget);
+        let tuning = Tuning::for_budget(&options.budget);
         Self::from_reader_tuned(input, file, options, bar, tuning)
     }
 
@@ -244,6 +248,7 @@ impl LogReader {
                 score_dim: schema.scores.len(),
                 obs_dim: schema.obs.len(),
                 act_dim: schema.act.len(),
+                next_obs_dim: schema.next_obs.len(),
                 logged: options.columns.logged.clone().into(),
             },
             has_end_flags: schema.has_end_flags(),
@@ -251,7 +256,7 @@ impl LogReader {
             id_col: schema.id_column(),
             step_col: schema.column(Role::Step),
         };
-        let mut assembler = Assembler::new(shape, options.budget, warnings);
+        let mut assembler = Assembler::new(shape, options.budget.clone(), warnings);
         assembler.next_file(file, opened.source.unit());
         Ok(LogReader {
             source: opened.source,
@@ -312,7 +317,13 @@ impl LogReader {
         while !self.at_eof {
             let Some(block) = self.pending.front() else {
                 match self.source.next(&self.file) {
-                    Some(b) => self.pending.push_back(b?),
+                    Some(b) => {
+                        // CSV blocks are charged on the producer already (settling again is a
+                        // no-op); columnar batches are charged here.
+                        let mut b = b?;
+                        b.settle(&self.options.budget);
+                        self.pending.push_back(b);
+                    }
                     None => self.next_file()?,
                 }
                 continue;
@@ -465,7 +476,7 @@ fn open_file(path: &str, options: &ReadOptions) -> Result<Opened> {
         src.reader,
         &name,
         options,
-        Tuning::for_budget(options.budget),
+        Tuning::for_budget(&options.budget),
     );
     if compressed {
         // Damaged deflate data can decode into plausible garbage; gzip's checksum is only
@@ -494,7 +505,7 @@ fn open_csv(
     options: &ReadOptions,
     tuning: Tuning,
 ) -> Result<Opened> {
-    let mut chunker = Chunker::new(input, options.delimiter, tuning);
+    let mut chunker = Chunker::new(input, options.delimiter, tuning).with_budget(&options.budget);
     let first = first_records(&mut chunker).map_err(|e| chunk_error(file, e))?;
     let Some(first) = first else {
         return Err(Error::input_hint(
@@ -517,6 +528,7 @@ fn open_csv(
     let parser = Arc::new(RowParser::new(&schema, file, options.delimiter));
     let mut parsed = parser.parse(&first.bytes[data_start..], data_line);
     parsed.tail = first.tail;
+    parsed.settle(&options.budget);
     chunker.recycle(first.bytes);
     let feed = if tuning.threaded {
         Feed::Threaded(Pipeline::start(chunker, Arc::clone(&parser)))
@@ -604,6 +616,7 @@ fn first_records(chunker: &mut Chunker) -> Result<Option<chunks::Block>, ChunkEr
 fn chunk_error(file: &str, e: ChunkError) -> Error {
     match e {
         ChunkError::Io(io) => io_error(file, io, None),
+        ChunkError::Budget(e) => e,
         ChunkError::RecordTooLong { line, limit } => Error::input_hint(
             Position {
                 file: file.into(),

@@ -32,6 +32,8 @@ pub struct Pipeline {
 impl Pipeline {
     pub fn start(mut chunker: Chunker, parser: Arc<RowParser>) -> Pipeline {
         let batch = batch();
+        // Parsed blocks are charged here, before they queue, so the blocks in flight count.
+        let budget = chunker.budget().cloned();
         let (tx, rx) = sync_channel::<Item>(batch);
         let (spare_tx, spare_rx) = sync_channel::<Parsed>(2 * batch);
         let handle = std::thread::spawn(move || {
@@ -61,6 +63,9 @@ impl Pipeline {
                     .for_each(|(out, b)| {
                         parser.parse_into(&b.bytes, b.first_line, out);
                         out.tail = b.tail;
+                        if let Some(budget) = &budget {
+                            out.settle(budget);
+                        }
                     });
                 for b in blocks {
                     chunker.recycle(b.bytes);

@@ -196,6 +196,7 @@ mod blocks {
                 Ok(None) => return (out, None),
                 Err(ChunkError::RecordTooLong { line, .. }) => return (out, Some((line, None))),
                 Err(ChunkError::Io(e)) => panic!("{e}"),
+                Err(ChunkError::Budget(e)) => panic!("no budget is charged here: {e}"),
             };
             let parsed = p.parse(&b.bytes, b.first_line);
             for r in &parsed.rows {

@@ -2,12 +2,13 @@
 //! parallel; a block stops at its first bad field and keeps that error for the assembler to
 //! raise in file order.
 
-use super::columns::{Role, Schema};
+use super::columns::Schema;
 use super::fields::{self, FieldProblem};
+use super::role_index::RoleIndex;
 use crate::error::{Error, Position};
 
-/// One step as read from the log. Vector fields live in the block's `vectors` (scores, obs,
-/// act, in that order), the episode id in its `ids`.
+/// One step as read from the log. Vector fields live in the block's `vectors` (in the order
+/// of [`RoleIndex::vectors`]), the episode id in its `ids`.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Row {
     pub line: u64,
@@ -32,6 +33,8 @@ pub struct Parsed {
     scratch: Scratch,
     /// How the block's bytes end (only the file's last block can be cut short).
     pub tail: super::chunks::Tail,
+    /// What the block's buffers hold, on the budget's ledger ([`Parsed::settle`]).
+    charge: Option<crate::limits::Charge>,
 }
 
 impl Parsed {
@@ -42,6 +45,28 @@ impl Parsed {
         self.vectors.clear();
         self.error = None;
         self.tail = super::chunks::Tail::Complete;
+    }
+
+    /// Charges the block's buffers (their capacity) to `budget`'s ledger as the reader's;
+    /// a block over what the budget has left becomes an empty block with that error.
+    pub fn settle(&mut self, budget: &crate::limits::Budget) {
+        let bytes = (self.rows.capacity() * std::mem::size_of::<Row>()
+            + self.ids.capacity()
+            + self.vectors.capacity() * 8
+            + self.scratch.data.capacity()
+            + self.scratch.ends.capacity() * 8) as u64;
+        let charge = self
+            .charge
+            .get_or_insert_with(|| budget.charge(crate::limits::Holder::Reader));
+        let rows = self.rows.len();
+        if let Err(e) = charge.set(
+            bytes,
+            || format!("the reader's parsed blocks (one of {rows} rows)"),
+            "raise --max-memory (the reader sizes its blocks from it)",
+        ) {
+            self.clear();
+            self.error = Some(e);
+        }
     }
 
     pub fn id(&self, row: &Row) -> &[u8] {
@@ -217,17 +242,7 @@ pub struct RowParser {
     file: String,
     headers: Vec<String>,
     delimiter: u8,
-    episode: usize,
-    reward: usize,
-    step: Option<usize>,
-    terminated: Option<usize>,
-    truncated: Option<usize>,
-    done: Option<usize>,
-    value: Option<usize>,
-    next_value: Option<usize>,
-    q: Option<usize>,
-    logp: Option<usize>,
-    vectors: Vec<usize>,
+    roles: RoleIndex,
 }
 
 impl super::assemble::Locate for RowParser {
@@ -242,31 +257,17 @@ impl super::assemble::Locate for RowParser {
 
 impl RowParser {
     pub fn new(schema: &Schema, file: &str, delimiter: u8) -> RowParser {
-        let mut vectors = schema.scores.clone();
-        vectors.extend(&schema.obs);
-        vectors.extend(&schema.act);
-        vectors.extend(&schema.logged);
         RowParser {
             file: file.to_string(),
             headers: schema.headers.clone(),
             delimiter,
-            episode: schema.id_column(),
-            reward: schema.column(Role::Reward).expect("required role"),
-            step: schema.column(Role::Step),
-            terminated: schema.column(Role::Terminated),
-            truncated: schema.column(Role::Truncated),
-            done: schema.column(Role::Done),
-            value: schema.column(Role::Value),
-            next_value: schema.column(Role::NextValue),
-            q: schema.column(Role::Q),
-            logp: schema.column(Role::Logp),
-            vectors,
+            roles: RoleIndex::new(schema),
         }
     }
 
-    /// Fields per row of the vector block (scores + obs + act + logged columns).
+    /// Fields per row of the vector block (scores + obs + act + next obs + logged columns).
     pub fn vector_width(&self) -> usize {
-        self.vectors.len()
+        self.roles.vector_width()
     }
 
     pub fn at(&self, line: u64, col: Option<usize>) -> Position {
@@ -378,16 +379,17 @@ impl RowParser {
             Some(c) => fields::boolean(rec.field(c)).map_err(|p| self.field_error(rec, line, c, p)),
             None => Ok(false),
         };
-        let id = rec.field(self.episode);
+        let r = &self.roles;
+        let id = rec.field(r.id);
         if id.trim_ascii().is_empty() {
             return Err(Error::input(
-                self.at(line, Some(self.episode)),
+                self.at(line, Some(r.id)),
                 "the episode id is empty",
             ));
         }
         if id.len() > crate::limits::MAX_ID_BYTES {
             return Err(Error::input(
-                self.at(line, Some(self.episode)),
+                self.at(line, Some(r.id)),
                 format!(
                     "the episode id \"{}\" is {} bytes long, more than the limit of {} bytes",
                     fields::shown(id),
@@ -397,15 +399,15 @@ impl RowParser {
             ));
         }
         // Fields are checked in the order of this list (the first bad one is reported).
-        let reward = num(self.reward)?;
-        let step = match self.step {
+        let reward = num(r.reward)?;
+        let step = match r.step {
             Some(c) => {
                 Some(fields::integer(rec.field(c)).map_err(|p| self.field_error(rec, line, c, p))?)
             }
             None => None,
         };
-        let (terminated, truncated) = (flag(self.terminated)?, flag(self.truncated)?);
-        let done = flag(self.done)?;
+        let (terminated, truncated) = (flag(r.terminated)?, flag(r.truncated)?);
+        let done = flag(r.done)?;
         let row = Row {
             line,
             id: (out.ids.len(), id.len()),
@@ -414,16 +416,16 @@ impl RowParser {
             // The done convention: terminated = done and not truncated.
             terminated: terminated || (done && !truncated),
             truncated,
-            value: opt_num(self.value)?,
-            q: opt_num(self.q)?,
-            logp: opt_num(self.logp)?,
-            next_value: match self.next_value {
+            value: opt_num(r.value)?,
+            q: opt_num(r.q)?,
+            logp: opt_num(r.logp)?,
+            next_value: match r.next_value {
                 Some(c) => fields::optional_number(rec.field(c))
                     .map_err(|p| self.field_error(rec, line, c, p))?,
                 None => None,
             },
         };
-        for &c in &self.vectors {
+        for &c in &r.vectors {
             out.vectors.push(num(c)?);
         }
         out.ids.extend_from_slice(id);

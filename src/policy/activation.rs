@@ -33,22 +33,23 @@ pub(crate) fn sigmoid(x: f64) -> f64 {
 
 impl Activation {
     /// The activation called `name`; `alpha` is elu's alpha, `slope` leaky relu's negative
-    /// slope (torch's defaults 1 and 0.01 when absent).
+    /// slope (torch's defaults 1 and 0.01 when absent). Case is ignored, so the frameworks'
+    /// class names (`Tanh`, `ReLU`, `LeakyReLU`, `SiLU`) are read too.
     pub fn parse(name: &str, alpha: Option<f64>, slope: Option<f64>) -> Result<Self, String> {
-        let a = match name {
+        let a = match name.to_ascii_lowercase().as_str() {
             "identity" | "linear" => Activation::Identity,
             "tanh" => Activation::Tanh,
             "relu" => Activation::Relu,
             "elu" => Activation::Elu {
                 alpha: alpha.unwrap_or(1.0),
             },
-            "leaky_relu" => Activation::LeakyRelu {
+            "leaky_relu" | "leakyrelu" => Activation::LeakyRelu {
                 slope: slope.unwrap_or(0.01),
             },
             "silu" | "swish" => Activation::Silu,
             "sigmoid" => Activation::Sigmoid,
             "softplus" => Activation::Softplus,
-            other => return Err(format!("unknown activation '{other}'; known: {NAMES}")),
+            _ => return Err(format!("unknown activation '{name}'; known: {NAMES}")),
         };
         if alpha.is_some() && !matches!(a, Activation::Elu { .. }) {
             return Err(format!("\"alpha\" is elu's parameter, not {name}'s"));

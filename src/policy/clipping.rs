@@ -185,6 +185,7 @@ mod tests {
             obs: Vec::new(),
             act_dim: 1,
             act: acts.to_vec(),
+            next_obs: None,
             end: End::Terminated,
             env: None,
         }

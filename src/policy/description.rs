@@ -87,8 +87,27 @@ impl Ctx<'_> {
         cols.iter()
             .position(|&c| self.schema.headers[c] == name)
             .ok_or_else(|| {
+                let have: Vec<&str> = cols
+                    .iter()
+                    .map(|&c| self.schema.headers[c].as_str())
+                    .collect();
+                let have = match have.as_slice() {
+                    [] => format!(
+                        "it has none: name their header prefix with --{kind}-prefix, or a list \
+                         column with --col {kind}=NAME"
+                    ),
+                    [a, _, _, _, _, _, ..] => {
+                        format!(
+                            "they are {a} .. {} ({} columns)",
+                            have[have.len() - 1],
+                            have.len()
+                        )
+                    }
+                    _ => format!("they are {}", have.join(", ")),
+                };
                 self.bad(format!(
-                    "{kind} column '{name}' named by the policy is not among the log's {kind} columns"
+                    "{kind} column '{name}' named by the policy is not among the log's {kind} \
+                     columns ({have})"
                 ))
             })
     }

@@ -242,6 +242,23 @@ mod tests {
         }
         let avg = sum / m as f64;
         let sd = 1.0 / (m as f64).sqrt();
+        let (mut diag, mut off) = (0.0f64, 0.0f64);
+        for a in 0..d {
+            for b in 0..d {
+                let dev = (avg[[a, b]] - if a == b { 1.0 } else { 0.0 }).abs();
+                if a == b {
+                    diag = diag.max(dev);
+                } else {
+                    off = off.max(dev);
+                }
+            }
+        }
+        eprintln!(
+            "d = {d}, M = {m} draws: largest |avg - 1| on the diagonal {diag:.4} (tolerance {:.4}), \
+             largest |avg| off it {off:.4} (tolerance {:.4})",
+            5.0 * sd * 8.0f64.sqrt(),
+            5.0 * sd * 3.0f64.sqrt()
+        );
         for a in 0..d {
             for b in 0..d {
                 let want = if a == b { 1.0 } else { 0.0 };

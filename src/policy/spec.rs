@@ -504,4 +504,10 @@ impl ValueNet {
             .column(0)
             .to_owned()
     }
+
+    /// V(s) at one observation vector `obs` (laid out as the log's obs columns).
+    pub fn value_at(&self, obs: &[f64]) -> f64 {
+        let x = super::gather(obs, obs.len(), &self.features);
+        super::network::forward(&self.mlp, x.view())[(0, 0)]
+    }
 }

@@ -151,11 +151,13 @@ fn assert_matches_finite_differences(
     obs: &Array2<f64>,
     act: &Array2<f64>,
     what: &str,
-) {
+) -> f64 {
     let scores = net.scores(obs.view(), act.view()).unwrap();
     assert_eq!(scores.ncols(), net.dim());
     let h = 1e-5;
     let mut col = 0;
+    // The largest discrepancy seen, relative to max(1, |score|).
+    let mut worst = 0.0f64;
     for &p in &net.theta_params {
         for k in 0..net.mlp.params[p].value.len() {
             let (mut up, mut down) = (net.clone(), net.clone());
@@ -166,6 +168,7 @@ fn assert_matches_finite_differences(
                 / (2.0 * h);
             for t in 0..obs.nrows() {
                 let s = scores[[t, col]];
+                worst = worst.max((fd[t] - s).abs() / s.abs().max(1.0));
                 assert!(
                     (fd[t] - s).abs() < 1e-6 * s.abs().max(1.0),
                     "{what}: {} component {k}, step {t}: score {s} vs finite difference {}",
@@ -177,6 +180,7 @@ fn assert_matches_finite_differences(
         }
     }
     assert_eq!(col, net.dim());
+    worst
 }
 
 /// No pre-activation sits within 1e-3 of a kink (relu, leaky relu, elu at 0), where a
@@ -205,6 +209,7 @@ fn every_activation_and_head_matches_finite_differences() {
         "sigmoid",
         "softplus",
     ];
+    let (mut worst, mut cases) = (0.0f64, 0);
     for (i, act) in activations.iter().enumerate() {
         for head in HEADS {
             for norm in [false, true] {
@@ -218,15 +223,19 @@ fn every_activation_and_head_matches_finite_differences() {
                 let net = network(&d);
                 let (obs, a) = data(head);
                 assert_clear_of_kinks(&net, &obs);
-                assert_matches_finite_differences(
+                worst = worst.max(assert_matches_finite_differences(
                     &net,
                     &obs,
                     &a,
                     &format!("{act} {head} norm={norm}"),
-                );
+                ));
+                cases += 1;
             }
         }
     }
+    eprintln!(
+        "{cases} networks; largest |score - central difference| / max(1, |score|): {worst:.2e}"
+    );
 }
 
 #[test]
@@ -590,7 +599,8 @@ fn bad_weights_files_name_the_file_and_the_tensor() {
         })
     });
     assert!(
-        e.contains("tensor 'W2' (the weight of layer 2) has shape [4, 3], expected [out, 4]"),
+        e.contains("tensor 'W2' (the weight of layer 2) has shape [4, 3], expected [out, 4]")
+            && e.contains("it looks transposed"),
         "{e}"
     );
     let e = try_with(&|r| {
@@ -617,6 +627,32 @@ fn bad_weights_files_name_the_file_and_the_tensor() {
         err.contains("w.safetensors") && err.contains("not a readable safetensors file"),
         "{err}"
     );
+    // A weights file that is not there is named with the description that names it.
+    std::fs::remove_file(dir.path().join("w.safetensors")).unwrap();
+    let err = Policy::load(desc.to_str().unwrap(), &schema())
+        .unwrap_err()
+        .to_string();
+    assert!(
+        err.contains("a.json") && err.contains("cannot read the weights file"),
+        "{err}"
+    );
+}
+
+// Activation names are read in any case, so the frameworks' class names work as they are.
+#[test]
+fn activation_names_ignore_case() {
+    use super::activation::Activation;
+    for (name, want) in [
+        ("Tanh", Activation::Tanh),
+        ("ReLU", Activation::Relu),
+        ("LeakyReLU", Activation::LeakyRelu { slope: 0.01 }),
+        ("SiLU", Activation::Silu),
+        ("Identity", Activation::Identity),
+    ] {
+        assert_eq!(Activation::parse(name, None, None), Ok(want), "{name}");
+    }
+    let e = Activation::parse("GELU", None, None).unwrap_err();
+    assert!(e.contains("unknown activation 'GELU'"), "{e}");
 }
 
 #[test]

@@ -55,7 +55,16 @@ impl Tensors {
                     }
                     _ => w.to_string(),
                 };
-                let bytes = std::fs::read(&path).map_err(|e| Error::io(&path, e))?;
+                let bytes = std::fs::read(&path).map_err(|e| {
+                    Error::input_hint(
+                        Position {
+                            file: desc.to_string(),
+                            ..Default::default()
+                        },
+                        format!("cannot read the weights file '{path}' it names: {e}"),
+                        "\"weights\" is a path relative to the description file's folder",
+                    )
+                })?;
                 if let Err(e) = SafeTensors::deserialize(&bytes) {
                     return Err(at(&path, format!("not a readable safetensors file: {e}")));
                 }
@@ -87,11 +96,22 @@ impl Tensors {
                 Want::Matrix { rows: None, cols } => format!("[out, {cols}] ([out, in])"),
                 Want::Vector(n) => format!("[{n}]"),
             };
+            // [in, out] is how JAX/Flax and Keras save a dense kernel.
+            let transposed = match (want, shape.as_slice()) {
+                (Want::Matrix { rows, cols }, [r, c]) => *r == cols && rows.is_none_or(|w| w == *c),
+                _ => false,
+            };
             return Err(at(
                 &where_,
                 format!(
-                    "tensor '{name}' ({role}) has shape {}, expected {expected}",
-                    shown(&shape)
+                    "tensor '{name}' ({role}) has shape {}, expected {expected}{}",
+                    shown(&shape),
+                    if transposed {
+                        "; it looks transposed ([in, out], as JAX/Flax and Keras save dense \
+                         kernels): save its transpose"
+                    } else {
+                        ""
+                    }
                 ),
             ));
         }

@@ -2,21 +2,18 @@
 //! Markdown renderings. Every figure is finite or None.
 
 use super::table::num;
-use super::{Tool, finite};
+use super::{LogCounts, Tool, finite};
 use crate::crosscheck::{CheckConfig, Claim};
 use crate::warnings::Warnings;
 use serde::Serialize;
 use std::collections::BTreeMap;
 
-/// What was read.
+/// What was read: the counts every report has (in the JSON at this level), and the
+/// environments.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct Input {
-    pub file: String,
-    pub rows: u64,
-    pub episodes: u64,
-    pub steps: u64,
-    pub terminated: u64,
-    pub truncated: u64,
+    #[serde(flatten)]
+    pub log: LogCounts,
     /// Distinct environment values (0 without an environment column).
     pub environments: usize,
     #[serde(skip)]
@@ -123,10 +120,7 @@ impl CrosscheckReport {
     pub fn new(input: Input, cfg: &CheckConfig, columns: Vec<ColumnReport>) -> Self {
         let c = cfg.claim;
         CrosscheckReport {
-            tool: Tool {
-                schema: "gradaudit.crosscheck/1",
-                ..Tool::current()
-            },
+            tool: Tool::with_schema("gradaudit.crosscheck/1"),
             claim: ClaimInfo {
                 estimator: c.name(),
                 gamma: c.gamma,
@@ -148,7 +142,7 @@ fn cell(x: Option<f64>) -> String {
     x.and_then(finite).map_or("-".into(), num)
 }
 
-fn row_text(r: &Row) -> String {
+pub(crate) fn row_text(r: &Row) -> String {
     format!(
         "line {}, episode {}, step {}: logged {}, reference {} (difference {}, tolerance {})",
         r.line,
@@ -161,7 +155,7 @@ fn row_text(r: &Row) -> String {
     )
 }
 
-fn params_text(p: &BTreeMap<&'static str, f64>) -> String {
+pub(crate) fn params_text(p: &BTreeMap<&'static str, f64>) -> String {
     p.iter()
         .filter(|(_, v)| v.is_finite())
         .map(|(k, v)| format!("{k}={}", short(*v)))
@@ -170,7 +164,7 @@ fn params_text(p: &BTreeMap<&'static str, f64>) -> String {
 }
 
 /// A fitted value with enough digits to see a fine grid (at most 9 significant).
-fn short(x: f64) -> String {
+pub(crate) fn short(x: f64) -> String {
     let s = format!("{x:.9}");
     let s = s.trim_end_matches('0').trim_end_matches('.');
     if s.is_empty() || s == "-" {
@@ -223,7 +217,7 @@ pub fn verdict(c: &ColumnReport) -> String {
 fn header_lines(r: &CrosscheckReport) -> Vec<String> {
     let i = &r.input;
     vec![
-        format!("gradaudit crosscheck of {}", i.file),
+        format!("gradaudit crosscheck of {}", i.log.file),
         format!(
             "claim      {} at gamma {}",
             r.claim.estimator,
@@ -231,10 +225,10 @@ fn header_lines(r: &CrosscheckReport) -> Vec<String> {
         ),
         format!(
             "log        {} episodes, {} steps ({} terminated, {} truncated){}",
-            i.episodes,
-            i.steps,
-            i.terminated,
-            i.truncated,
+            i.log.episodes,
+            i.log.steps,
+            i.log.terminated,
+            i.log.truncated,
             if i.environments > 0 {
                 format!(", {} environments", i.environments)
             } else {
@@ -244,7 +238,7 @@ fn header_lines(r: &CrosscheckReport) -> Vec<String> {
     ]
 }
 
-fn tolerance_text(c: &ColumnReport) -> String {
+pub(crate) fn tolerance_text(c: &ColumnReport) -> String {
     let t = &c.tolerance;
     match t.unit {
         Some(u) => format!(
@@ -259,7 +253,7 @@ fn tolerance_text(c: &ColumnReport) -> String {
     }
 }
 
-fn agreement_text(c: &ColumnReport) -> String {
+pub(crate) fn agreement_text(c: &ColumnReport) -> String {
     let a = &c.agreement;
     let unchecked = if a.unchecked_steps > 0 {
         format!(

@@ -1,4 +1,5 @@
-//! `--format html`: one self-contained page per report (audit, sweep, gate, inspect) that a
+//! `--format html`: one self-contained page per report (audit, sweep, gate, inspect,
+//! crosscheck; merge shares audit's) that a
 //! team can attach to a pull request or open in a meeting. Everything is inline: the
 //! stylesheet (html/style.css: light and dark schemes from the reader's system setting, and a
 //! print layout), the figures as SVG (html/figures.rs), and a short plain script
@@ -14,6 +15,7 @@
 //! MSE figure with "how to read this" beside it, the estimator table (reference marked, biases
 //! within resampling noise set apart), notes and skipped estimators, the settings and seed.
 
+mod crosscheck;
 mod figures;
 mod inspect;
 
@@ -26,6 +28,7 @@ use crate::gate::GateReport;
 use crate::sweep::SweepReport;
 use std::fmt::Write;
 
+pub use crosscheck::crosscheck;
 pub use inspect::inspect;
 
 const STYLE: &str = include_str!("html/style.css");
@@ -487,7 +490,7 @@ pub fn sweep(r: &SweepReport) -> String {
     body.push_str(&figure(
         "fig-curves",
         &format!("Bias and variance over {}", st.over.key()),
-        &figures::sweep_curves(r),
+        &super::curves::sweep_svg(r, super::curves::Target::Page),
         &legend(
             &[
                 ("mse", "MSE"),

@@ -31,7 +31,9 @@ pub fn render_text(r: &InspectReport) -> String {
     out.push_str(&format!(
         "score dimension  {}{}\n",
         r.score_dim,
-        if r.score_dim == 0 {
+        if r.score_dim == 0 && r.policy.is_some() {
+            " (no score columns: the policy below computes them)"
+        } else if r.score_dim == 0 {
             " (no score columns: audit will need them)"
         } else {
             ""
@@ -60,6 +62,9 @@ pub fn render_text(r: &InspectReport) -> String {
         "end flags        {}: {}\n",
         r.end_flags.convention, r.end_flags.reason
     ));
+    if let Some(state) = &r.bootstrap_state {
+        out.push_str(&format!("bootstrap state  for --value-net: {state}\n"));
+    }
     if let Some(line) = super::table::critic_line(&r.critic) {
         out.push_str(&format!("{line} (returns at gamma {})\n", r.gamma));
     }

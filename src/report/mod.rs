@@ -10,6 +10,7 @@
 pub mod columns;
 pub mod crosscheck;
 pub mod csv;
+pub mod curves;
 pub mod gate;
 pub mod groups;
 pub mod html;
@@ -54,6 +55,29 @@ impl Tool {
             schema: "gradaudit.audit/1",
         }
     }
+
+    /// The same envelope for a report with a wire schema of its own (inspect, sweep,
+    /// crosscheck).
+    pub fn with_schema(schema: &'static str) -> Tool {
+        Tool {
+            schema,
+            ..Tool::current()
+        }
+    }
+}
+
+/// What a command read, counted: the fields every report's input opens with. The crosscheck
+/// report and a shard file's header carry exactly these; the audit's [`InputSummary`] starts
+/// with the same fields and converts to and from them.
+#[derive(Debug, Clone, Default, PartialEq, Serialize, serde::Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct LogCounts {
+    pub file: String,
+    pub rows: u64,
+    pub episodes: u64,
+    pub steps: u64,
+    pub terminated: u64,
+    pub truncated: u64,
 }
 
 #[derive(Debug, Clone, Default, PartialEq, Serialize)]
@@ -76,6 +100,33 @@ pub struct InputSummary {
     pub critic: crate::critic::CriticQuality,
     /// The value network behind V(s_t), with --value-net.
     pub value_net: Option<crate::critic::net::ValueNetSummary>,
+}
+
+impl InputSummary {
+    /// The counts of what was read.
+    pub fn counts(&self) -> LogCounts {
+        LogCounts {
+            file: self.file.clone(),
+            rows: self.rows,
+            episodes: self.episodes,
+            steps: self.steps,
+            terminated: self.terminated,
+            truncated: self.truncated,
+        }
+    }
+
+    /// A summary holding only `counts` (the rest default).
+    pub fn from_counts(c: LogCounts) -> InputSummary {
+        InputSummary {
+            file: c.file,
+            rows: c.rows,
+            episodes: c.episodes,
+            steps: c.steps,
+            terminated: c.terminated,
+            truncated: c.truncated,
+            ..InputSummary::default()
+        }
+    }
 }
 
 /// How the score columns were sketched, and what that means for the figures.

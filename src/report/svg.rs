@@ -1,18 +1,17 @@
-//! SVG plots drawn with plotters: the sweep's bias-variance curves and the audit's MSE split
-//! into bias^2 and variance. Text is emitted as SVG text elements, so no font library is needed.
+//! The stand-alone `--plot` SVG files: the audit's MSE split into bias^2 and variance, drawn with
+//! plotters (text as SVG text elements, so no font library is needed), and the sweep's
+//! bias-variance curves, which are the HTML page's drawing (report/curves.rs) in a file of
+//! their own; the axis-range helpers that both drawings use.
 
 use super::AuditReport;
 use crate::sweep::SweepReport;
 use plotters::coord::CoordTranslate;
-use plotters::coord::combinators::LogCoord;
 use plotters::coord::ranged1d::{SegmentValue, SegmentedCoord};
 use plotters::coord::types::{RangedCoordf64, RangedCoordusize};
 use plotters::prelude::*;
 
 const BIAS: RGBColor = RGBColor(200, 60, 40);
 const VARIANCE: RGBColor = RGBColor(40, 90, 200);
-const MSE: RGBColor = RGBColor(20, 20, 20);
-const BAND: RGBColor = RGBColor(60, 170, 90);
 
 fn failed<E: std::fmt::Debug>(e: E) -> String {
     format!("could not draw the plot: {e:?}")
@@ -67,150 +66,11 @@ pub(crate) fn axis_unit(top: f64) -> (f64, String) {
     (10f64.powf(e), format!(", in units of 1e{e}"))
 }
 
-/// The sweep's bias^2, variance and MSE against the swept parameter, log scale, with the
-/// one-standard-error band shaded and the recommended point circled.
+/// The sweep's bias^2, variance and MSE against the swept parameter, log scale, with the MSE
+/// interval shaded as a band, the one-standard-error points behind it and the recommended point
+/// circled: the HTML page's drawing (report/curves.rs), as a stand-alone file.
 pub fn sweep_plot(r: &SweepReport) -> Result<String, String> {
-    let p = r.points.len();
-    let values: Vec<f64> = r
-        .points
-        .iter()
-        .flat_map(|q| [q.bias_sq, q.variance, q.mse])
-        .flatten()
-        .filter(|x| x.is_finite() && *x > 0.0)
-        .collect();
-    let (lo, hi) = log_range(&values);
-    // Zero values cannot sit on a log axis: they are drawn on its floor (said in the caption).
-    // Undefined ones are left out of the curves.
-    let y = |v: f64| v.clamp(lo, hi);
-    let over = r.settings.over;
-    let x_desc = match over {
-        crate::sweep::Over::Lambda => "GAE lambda (dimensionless)",
-        crate::sweep::Over::Nstep => "n-step window n (steps)",
-        crate::sweep::Over::Gamma => "discount gamma (dimensionless)",
-    };
-    let labels: Vec<String> = r.points.iter().map(|q| q.label.clone()).collect();
-    let mut svg = String::new();
-    {
-        let root = SVGBackend::with_string(&mut svg, (960, 560)).into_drawing_area();
-        root.fill(&WHITE).map_err(failed)?;
-        let title = format!(
-            "gradaudit sweep over {} ({} episodes; zero values drawn on the floor)",
-            over.key(),
-            r.input.episodes
-        );
-        let mut chart = ChartBuilder::on(&root)
-            .caption(title, ("sans-serif", 18))
-            .margin(16)
-            .x_label_area_size(50)
-            .y_label_area_size(90)
-            .build_cartesian_2d(
-                (0..p.saturating_sub(1)).into_segmented(),
-                (lo..hi).log_scale(),
-            )
-            .map_err(failed)?;
-        chart
-            .configure_mesh()
-            .disable_x_mesh()
-            .x_labels(p)
-            .x_label_formatter(&|v| match v {
-                SegmentValue::CenterOf(i) | SegmentValue::Exact(i) => {
-                    labels.get(*i).cloned().unwrap_or_default()
-                }
-                SegmentValue::Last => String::new(),
-            })
-            .x_desc(x_desc)
-            .y_desc("squared error of one update (gradient units squared)")
-            .draw()
-            .map_err(failed)?;
-        draw_band(&mut chart, r, lo, hi)?;
-        draw_curves(&mut chart, r, &y)?;
-        // The lower left is where the curves rarely go: small errors at small parameters.
-        legend(&mut chart, SeriesLabelPosition::LowerLeft)?;
-        root.present().map_err(failed)?;
-    }
-    Ok(svg)
-}
-
-/// The sweep chart: grid points on x, squared error on a log y axis.
-type SweepChart<'a, 'b> =
-    ChartContext<'a, SVGBackend<'b>, Cartesian2d<SegmentedCoord<RangedCoordusize>, LogCoord<f64>>>;
-
-/// Shades the one-standard-error band (none when the sweep made no choice).
-fn draw_band(chart: &mut SweepChart, r: &SweepReport, lo: f64, hi: f64) -> Result<(), String> {
-    let p = r.points.len();
-    let band = &r.choice.band;
-    let (Some(&a), Some(&last)) = (band.first(), band.last()) else {
-        return Ok(());
-    };
-    let b = last + 1;
-    let right = if b >= p {
-        SegmentValue::Last
-    } else {
-        SegmentValue::Exact(b)
-    };
-    chart
-        .draw_series(std::iter::once(Rectangle::new(
-            [(SegmentValue::Exact(a), lo), (right, hi)],
-            BAND.mix(0.15).filled(),
-        )))
-        .map_err(failed)?
-        .label("within one standard error of the minimum")
-        .legend(|(x, y)| Rectangle::new([(x, y - 5), (x + 20, y + 5)], BAND.mix(0.3).filled()));
-    Ok(())
-}
-
-/// The bias^2, variance and MSE curves (undefined points left out) and the recommended point
-/// circled; `y` puts a value on the axis.
-fn draw_curves(
-    chart: &mut SweepChart,
-    r: &SweepReport,
-    y: &dyn Fn(f64) -> f64,
-) -> Result<(), String> {
-    type Figure = fn(&crate::sweep::SweepPoint) -> Option<f64>;
-    let series: [(&str, RGBColor, u32, Figure); 3] = [
-        ("bias^2", BIAS, 2, |q| q.bias_sq),
-        ("variance", VARIANCE, 2, |q| q.variance),
-        ("MSE", MSE, 3, |q| q.mse),
-    ];
-    for (name, color, width, f) in series {
-        let pts: Vec<(SegmentValue<usize>, f64)> = r
-            .points
-            .iter()
-            .enumerate()
-            .filter_map(|(i, q)| Some((SegmentValue::CenterOf(i), y(f(q)?))))
-            .collect();
-        chart
-            .draw_series(LineSeries::new(pts.clone(), color.stroke_width(width)))
-            .map_err(failed)?
-            .label(name)
-            .legend(move |(x, y)| {
-                PathElement::new(vec![(x, y), (x + 20, y)], color.stroke_width(width))
-            });
-        chart
-            .draw_series(pts.into_iter().map(|pt| Circle::new(pt, 3, color.filled())))
-            .map_err(failed)?;
-    }
-    let Some((rec, mse)) = r
-        .choice
-        .recommended
-        .and_then(|i| Some((i, r.points[i].mse?)))
-    else {
-        return Ok(());
-    };
-    chart
-        .draw_series(std::iter::once(Circle::new(
-            (SegmentValue::CenterOf(rec), y(mse)),
-            9,
-            BAND.stroke_width(3),
-        )))
-        .map_err(failed)?
-        .label(format!(
-            "recommended: {} = {}",
-            r.settings.over.key(),
-            r.points[rec].label
-        ))
-        .legend(|(x, y)| Circle::new((x + 10, y), 6, BAND.stroke_width(3)));
-    Ok(())
+    Ok(super::curves::sweep_svg(r, super::curves::Target::File))
 }
 
 /// The audit's estimators as horizontal bars, MSE split into bias^2 and variance.

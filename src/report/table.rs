@@ -138,6 +138,20 @@ pub fn render_with(r: &AuditReport, wide: bool) -> String {
     if let Some(line) = critic_line(&r.input.critic) {
         out.push_str(&wrap(&line, WIDTH, "  "));
     }
+    if let Some(v) = &r.input.value_net {
+        out.push_str(&wrap(
+            &format!(
+                "value network {} (explains {} of the return variance): {}",
+                v.file,
+                v.explained_variance
+                    .filter(|x| x.is_finite())
+                    .map_or("an undefined share".to_string(), |x| format!("{x:.3}")),
+                v.note
+            ),
+            WIDTH,
+            "  ",
+        ));
+    }
     if !r.warnings.is_empty() {
         out.push_str("warnings:\n");
         for line in r.warnings.lines() {

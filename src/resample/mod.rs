@@ -72,7 +72,9 @@ pub fn half_split(seed: u64, s: u64, first: &mut [f64], second: &mut [f64]) {
 /// memory budgets, checked before [`weighted_means`] allocates them.
 pub fn scratch_bytes(n: usize) -> u128 {
     let threads = rayon::current_num_threads().max(1) as u128;
-    crate::limits::bytes(threads, 8 * (BLOCK as u128 + 3)).saturating_mul(n as u128)
+    // The statistics' gradient blocks are the larger ones.
+    let block = BLOCK.max(GRADIENT_BLOCK) as u128;
+    crate::limits::bytes(threads, 8 * (block + 3)).saturating_mul(n as u128)
 }
 
 /// Weighted mean rows: row r of the result is sum_i w_ri c_i / sum_i w_ri, where the weights of

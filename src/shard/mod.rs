@@ -132,18 +132,6 @@ impl ShardSettings {
     }
 }
 
-/// The per-shard input counts.
-#[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct ShardInput {
-    pub file: String,
-    pub rows: u64,
-    pub episodes: u64,
-    pub steps: u64,
-    pub terminated: u64,
-    pub truncated: u64,
-}
-
 #[derive(Debug, Clone, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
 struct WireWarning {
@@ -176,14 +164,7 @@ fn f64_bytes(x: &[f64]) -> Vec<u8> {
 pub fn encode(shard: &Shard) -> Result<Vec<u8>> {
     use safetensors::{Dtype, tensor::TensorView};
     let p = &shard.partial;
-    let input = ShardInput {
-        file: p.input.file.clone(),
-        rows: p.input.rows,
-        episodes: p.input.episodes,
-        steps: p.input.steps,
-        terminated: p.input.terminated,
-        truncated: p.input.truncated,
-    };
+    let input = p.input.counts();
     let warnings: Vec<WireWarning> = p
         .warnings
         .iter()
@@ -258,7 +239,8 @@ fn json<T: Serialize>(v: &T) -> String {
 /// A shard file's metadata strings, parsed.
 struct Header {
     settings: ShardSettings,
-    input: ShardInput,
+    /// The per-shard input counts.
+    input: crate::report::LogCounts,
     warnings: Vec<WireWarning>,
     critic_steps: u64,
 }
@@ -371,16 +353,10 @@ pub fn decode(path: &str, bytes: &[u8]) -> Result<Shard> {
         sums,
         hashes,
         input: InputSummary {
-            file: input.file,
-            rows: input.rows,
-            episodes: input.episodes,
-            steps: input.steps,
-            terminated: input.terminated,
-            truncated: input.truncated,
             score_dim: settings.score_dim,
             parameters: settings.parameters.clone(),
             scores_from: settings.scores_from.clone(),
-            ..InputSummary::default()
+            ..InputSummary::from_counts(input)
         },
         warnings: warnings_from(wire),
         recorded,

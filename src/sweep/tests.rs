@@ -142,8 +142,10 @@ fn grids_parse_and_reject() {
     assert!(parse_grid(Over::Lambda, "0.5,0.5", Estimator::Rtg, 0.99).is_err());
 }
 
-// The SVG is well-formed XML (parsed by roxmltree, a general-purpose XML library) holding the
-// three series, their legend entries and the recommended-point marker.
+// The stand-alone SVG is well-formed XML (parsed by roxmltree, a general-purpose XML library)
+// holding the three series, the MSE interval as a band, the one-SE region, the recommended-point
+// marker and a key naming each; it is the HTML page's drawing (the same elements) in a file of
+// its own.
 #[test]
 fn svg_is_well_formed_and_complete() {
     let lq = Lq {
@@ -159,30 +161,51 @@ fn svg_is_well_formed_and_complete() {
         .filter_map(|n| n.text())
         .map(str::trim)
         .collect();
-    for want in ["bias^2", "variance", "MSE", "GAE lambda (dimensionless)"] {
-        assert!(
-            texts.iter().any(|t| t.contains(want)),
-            "{want} in {texts:?}"
-        );
+    for want in [
+        "bias^2",
+        "variance",
+        "MSE",
+        "MSE 95% interval",
+        "within one standard error of the lowest MSE",
+        "GAE lambda",
+    ] {
+        assert!(texts.contains(&want), "{want} in {texts:?}");
     }
     assert!(
         texts
             .iter()
             .any(|t| t.starts_with("recommended: lambda = "))
     );
-    let lines = doc
-        .descendants()
-        .filter(|n| n.has_tag_name("polyline"))
-        .count();
-    assert!(lines >= 3, "three series drawn as polylines, found {lines}");
-    let circles = doc
-        .descendants()
-        .filter(|n| n.has_tag_name("circle"))
-        .count();
-    assert!(
-        circles > 3 * 3,
-        "points of three series plus the marker, found {circles}"
-    );
+    let class = |tag: &str, class: &str| {
+        doc.descendants()
+            .filter(|n| {
+                n.has_tag_name(tag)
+                    && n.attribute("class")
+                        .is_some_and(|c| c.split(' ').any(|w| w == class))
+            })
+            .count()
+    };
+    // Three curves and their three key entries; a dot per point and series.
+    assert_eq!(class("path", "line"), 3 + 3);
+    assert_eq!(class("circle", "dot"), 3 * 3);
+    // The MSE interval band over the three points, and its key swatch.
+    assert!(s.points.iter().all(|p| p.mse_interval.is_some()));
+    assert_eq!(class("polygon", "band"), 1);
+    assert_eq!(class("rect", "band"), 1);
+    // One column per point within one SE, plus the key's swatch; the marker and its key.
+    assert_eq!(class("rect", "se"), s.choice.band.len() + 1);
+    assert_eq!(class("circle", "rec"), 2);
+    // The same drawing as the HTML page's.
+    let page = crate::report::curves::sweep_svg(&s, crate::report::curves::Target::Page);
+    let inner = |text: &str| {
+        let d = roxmltree::Document::parse(text).unwrap();
+        d.descendants()
+            .find(|n| n.has_tag_name("polygon"))
+            .and_then(|n| n.attribute("points"))
+            .unwrap()
+            .to_string()
+    };
+    assert_eq!(inner(&svg), inner(&page));
 }
 
 fn point(label: &str, value: f64, mse: Option<f64>, bias_sq: Option<f64>) -> SweepPoint {

@@ -258,11 +258,25 @@ fn few_episodes_warn_and_undefined_figures_are_null() {
 
 #[test]
 fn open_episodes_respect_the_memory_budget() {
+    // A zero budget cannot hold even the reader's first block.
     let rover = demo("docking_rover.csv");
     let (code, _, err) = run(&["inspect", &rover, "--max-memory", "0"]);
     assert_eq!(code, 2);
     assert!(
-        err.contains("line 2") && err.contains("memory budget of 0 MB"),
+        err.contains("reader's raw blocks") && err.contains("memory budget of 0 MB"),
+        "{err}"
+    );
+    // One episode that never ends: 60,000 steps of 48 bytes each pass 1 MB.
+    let dir = Dir::new("open-budget");
+    let mut text = String::from("episode,reward,terminated,score_0\n");
+    text.push_str(&"a,1,0,0.5\n".repeat(60_000));
+    let p = dir.write("open.csv", text.as_bytes());
+    let (code, _, err) = run(&["inspect", &p, "--max-memory", "1"]);
+    assert_eq!(code, 2);
+    assert!(
+        err.contains("open.csv, line ")
+            && err.contains("'a' has")
+            && err.contains("memory budget of 1 MB"),
         "{err}"
     );
     assert!(err.contains("terminated or truncated"), "{err}");

@@ -22,17 +22,10 @@ struct Log {
     ep: Vec<usize>,
 }
 
-/// xorshift64*: a fixed stream of numbers in [-1, 1) (no shared code with the tool).
-struct Rng(u64);
-impl Rng {
-    fn next(&mut self) -> f64 {
-        self.0 ^= self.0 >> 12;
-        self.0 ^= self.0 << 25;
-        self.0 ^= self.0 >> 27;
-        let x = self.0.wrapping_mul(0x2545_F491_4F6C_DD1D);
-        (x >> 11) as f64 / (1u64 << 53) as f64 * 2.0 - 1.0
-    }
-}
+/// A fixed stream of numbers in [-1, 1) (`signed`): the test generator the library's unit tests
+/// use too. It takes no part in any computation of the tool; the faults and the checks below
+/// share no code with it.
+use gradaudit::testing::XorShift as Rng;
 
 /// 40 episodes of 2 to 25 steps; every third truncated with a bootstrap value, the last one
 /// terminated (so every truncated episode has a next episode).
@@ -47,16 +40,16 @@ fn log() -> Log {
         ep: vec![],
     };
     for e in 0..40 {
-        let len = 2 + ((g.next() + 1.0) * 12.0) as usize;
+        let len = 2 + ((g.signed() + 1.0) * 12.0) as usize;
         let truncated = e % 3 == 1;
         for t in 0..len {
-            l.r.push((2.0 * g.next() * 1e6).round() / 1e6);
-            l.v.push((5.0 * g.next() * 1e6).round() / 1e6);
+            l.r.push((2.0 * g.signed() * 1e6).round() / 1e6);
+            l.v.push((5.0 * g.signed() * 1e6).round() / 1e6);
             let end = t + 1 == len;
             l.last.push(end);
             l.term.push(end && !truncated);
             l.boot.push(if end && truncated {
-                (3.0 + 4.0 * g.next() * 1e6).round() / 1e6
+                (3.0 + 4.0 * g.signed() * 1e6).round() / 1e6
             } else {
                 0.0
             });
@@ -573,7 +566,7 @@ pub fn exact_gae_log() -> (Dir, String) {
         if k == 0 {
             text.push_str(&format!("{line},score_0,score_1\n"));
         } else {
-            text.push_str(&format!("{line},{},{}\n", g.next(), g.next()));
+            text.push_str(&format!("{line},{},{}\n", g.signed(), g.signed()));
         }
     }
     let dir = Dir::new("exact_gae");

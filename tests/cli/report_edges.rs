@@ -1,12 +1,12 @@
 //! The rough edges of the text screens (issue 15), one test each: the sweep's sentence is
 //! complete, Markdown tables parse with the right column count in a CommonMark + tables parser
-//! (pulldown-cmark), `inspect --format json` carries the tool/schema envelope, estimators
-//! identical by construction share one row (JSON keeps them apart), the tables have our own
-//! look, the gate says "holds"/"breaks", and the terminal tables fit 100 columns unless
-//! `--wide`.
+//! (pulldown-cmark; crosscheck's faults tables too), `inspect --format json` carries the
+//! tool/schema envelope, estimators identical by construction share one row (JSON keeps them
+//! apart), the tables have our own look, the gate says "holds"/"breaks", and the terminal
+//! tables fit 100 columns unless `--wide`.
 
 use crate::snapshots::output;
-use crate::util::{demo, run, run_json};
+use crate::util::{crosscheck_args, demo, run, run_json};
 use pulldown_cmark::{Event, Options, Parser, Tag, TagEnd};
 
 const ROVER: &str = "demo-data/docking_rover.csv";
@@ -90,6 +90,21 @@ fn markdown_tables_parse_with_every_column() {
     assert_eq!(tables[0].len(), 2);
     assert!(tables[0].iter().all(|r| r.len() == 5), "{:?}", tables[0]);
     assert_eq!(tables[0][1][0], "breaks");
+
+    // crosscheck: a faults table per differing column, 7 columns, a row per fault checked.
+    let fault = demo("docking_rover_adv_fault.csv");
+    let cc = run(&[&crosscheck_args(&fault)[..], &["--format", "markdown"]].concat()).1;
+    let tables = markdown_tables(&cc);
+    let sizes: Vec<usize> = tables.iter().map(|t| t.len() - 1).collect();
+    assert_eq!(
+        sizes,
+        [11, 9],
+        "advantage: the whole catalogue; return: no normalisation"
+    );
+    for t in &tables {
+        assert!(t.iter().all(|r| r.len() == 7), "{t:?}");
+        assert_eq!(t[1][..2], ["truncation_as_termination", "yes"]);
+    }
 }
 
 #[test]

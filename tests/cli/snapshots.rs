@@ -1,4 +1,5 @@
 //! Snapshot tests of the text outputs on the demo logs: every table, Markdown and summary layout
+//! (crosscheck's too, on the rover logs with a stack's own advantage columns)
 //! is kept under tests/snapshots/, so a change of layout (or of a figure) is a visible diff in
 //! review. After a deliberate change, rewrite them with
 //! `GRADAUDIT_BLESS=1 cargo test --locked --test cli snapshots` and read the diff before
@@ -7,11 +8,18 @@
 //! The runs use the default seed and the repository-relative demo paths (the binary runs in the
 //! repository root), so the files hold nothing of the machine.
 
-use crate::util::gradaudit;
+use crate::util::{crosscheck_args, gradaudit};
 use std::path::PathBuf;
 
 const ROVER: &str = "demo-data/docking_rover.csv";
 const DIVERTER: &str = "demo-data/parcel_diverter.csv";
+const ADV: &str = "demo-data/docking_rover_adv.csv";
+const FAULT: &str = "demo-data/docking_rover_adv_fault.csv";
+
+/// `crosscheck` of both logged columns of a demo log in `format`.
+fn crosscheck(log: &'static str, format: &'static str) -> Vec<&'static str> {
+    [crosscheck_args(log), vec!["--format", format]].concat()
+}
 
 /// (snapshot file, arguments, expected exit code).
 fn cases() -> Vec<(&'static str, Vec<&'static str>, i32)> {
@@ -63,6 +71,20 @@ fn cases() -> Vec<(&'static str, Vec<&'static str>, i32)> {
         ),
         ("inspect_rover.txt", vec!["inspect", ROVER], 0),
         ("inspect_diverter.txt", vec!["inspect", DIVERTER], 0),
+        // A training stack's own columns (README "Checking a stack's own advantages"): the
+        // correct ones agree (exit 0), the faulty ones are explained (exit 1).
+        ("crosscheck_rover_adv.txt", crosscheck(ADV, "table"), 0),
+        ("crosscheck_rover_adv.md", crosscheck(ADV, "markdown"), 0),
+        (
+            "crosscheck_rover_adv_fault.txt",
+            crosscheck(FAULT, "table"),
+            1,
+        ),
+        (
+            "crosscheck_rover_adv_fault.md",
+            crosscheck(FAULT, "markdown"),
+            1,
+        ),
     ]
 }
 

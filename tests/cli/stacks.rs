@@ -27,16 +27,8 @@ struct Step {
     truncated: bool,
 }
 
-/// A small deterministic generator (xorshift64*), so the logs need no fixtures.
-struct Rng(u64);
-impl Rng {
-    fn unit(&mut self) -> f64 {
-        self.0 ^= self.0 >> 12;
-        self.0 ^= self.0 << 25;
-        self.0 ^= self.0 >> 27;
-        (self.0.wrapping_mul(0x2545_f491_4f6c_dd1d) >> 11) as f64 / (1u64 << 53) as f64
-    }
-}
+/// A small deterministic generator (the library's test stream), so the logs need no fixtures.
+use gradaudit::testing::XorShift as Rng;
 
 /// `n` episodes of a parcel-diverter gate: each either reaches its absorbing state early or
 /// is cut by a 12-step time limit (then with a bootstrap value).

@@ -47,6 +47,19 @@ pub fn demo(name: &str) -> String {
     format!("{}/demo-data/{name}", env!("CARGO_MANIFEST_DIR"))
 }
 
+/// `crosscheck` of both logged columns (`adv`, `value_target`) of a rover demo log, as the
+/// README runs it; a format is added by the caller.
+pub fn crosscheck_args(log: &str) -> Vec<&str> {
+    vec![
+        "crosscheck",
+        log,
+        "--advantage",
+        "adv",
+        "--returns",
+        "value_target",
+    ]
+}
+
 /// Runs the binary and returns (exit code, stdout, stderr).
 pub fn run(args: &[&str]) -> (i32, String, String) {
     let out = gradaudit().args(args).output().expect("runs");

@@ -1,15 +1,14 @@
-//! The HTML page's inline SVG figures: the audit's MSE bars split into bias^2 and variance,
-//! and the sweep's three curves on a log axis with the MSE interval shaded as a band and the
-//! one-standard-error region behind it. Drawn as plain SVG elements with classes, so the page's
-//! stylesheet colours them in the light, dark and print schemes (report/svg.rs draws the
-//! stand-alone `--plot` files with plotters, in fixed colours; its axis-range helpers are reused
+//! The HTML page's inline SVG figures: the audit's MSE bars split into bias^2 and variance
+//! (here), and the sweep's curves (report/curves.rs, the one drawing that the stand-alone
+//! `--plot` file uses too). Drawn as plain SVG elements with classes, so the page's stylesheet
+//! colours them in the light, dark and print schemes (report/svg.rs draws the audit's
+//! stand-alone `--plot` bars with plotters, in fixed colours; its axis-range helpers are reused
 //! here). No element refers to anything outside the page.
 
 use super::esc;
 use crate::report::groups::Group;
-use crate::report::svg::{axis_unit, log_range};
+use crate::report::svg::axis_unit;
 use crate::report::table::num;
-use crate::sweep::SweepReport;
 use std::fmt::Write;
 
 const W: f64 = 760.0;
@@ -29,17 +28,6 @@ fn ticks(max: f64) -> Vec<f64> {
     (0..=((max / step).floor() as usize))
         .map(|i| i as f64 * step)
         .collect()
-}
-
-/// A decade's label: plain for 1e-3 to 1e4, else 1eK.
-fn decade(k: i32) -> String {
-    if (0..=4).contains(&k) {
-        format!("1{}", "0".repeat(k as usize))
-    } else if (-3..0).contains(&k) {
-        format!("0.{}1", "0".repeat((-k - 1) as usize))
-    } else {
-        format!("1e{k}")
-    }
 }
 
 fn svg_open(id: &str, h: f64, title: &str) -> String {
@@ -169,230 +157,6 @@ fn bar(g: &Group, y: f64, row_h: f64, left: f64, x: &dyn Fn(f64) -> f64) -> Stri
     s
 }
 
-/// The sweep's plot area and its log y axis.
-struct Frame {
-    left: f64,
-    right: f64,
-    top: f64,
-    bottom: f64,
-    n: usize,
-    lo: f64,
-    hi: f64,
-}
-
-impl Frame {
-    fn x(&self, i: usize) -> f64 {
-        self.left + (self.right - self.left) * (i as f64 + 0.5) / self.n as f64
-    }
-
-    /// A value's height; zero and values below the axis sit on its floor.
-    fn y(&self, v: f64) -> f64 {
-        let v = v.clamp(self.lo, self.hi);
-        let f = (v.log10() - self.lo.log10()) / (self.hi.log10() - self.lo.log10());
-        self.bottom - (self.bottom - self.top) * f
-    }
-}
-
-/// The sweep's curves: bias^2, variance and MSE against the grid, the MSE interval as a band,
-/// the one-standard-error points shaded behind, the recommended point circled.
-pub fn sweep_curves(r: &SweepReport) -> String {
-    let n = r.points.len().max(1);
-    let values: Vec<f64> = r
-        .points
-        .iter()
-        .flat_map(|p| {
-            let iv = p.mse_interval.map(|i| [i.low, i.high]).unwrap_or([0.0; 2]);
-            [p.bias_sq, p.variance, p.mse, Some(iv[0]), Some(iv[1])]
-        })
-        .flatten()
-        .filter(|v| v.is_finite() && *v > 0.0)
-        .collect();
-    let (lo, hi) = log_range(&values);
-    let f = Frame {
-        left: 70.0,
-        right: W - 16.0,
-        top: 14.0,
-        bottom: 330.0,
-        n,
-        lo,
-        hi,
-    };
-    let mut s = svg_open(
-        "fig-sweep",
-        384.0,
-        &format!(
-            "bias^2, variance and MSE over {}, {} episodes",
-            r.settings.over.key(),
-            r.input.episodes
-        ),
-    );
-    s.push_str(&y_axis(&f));
-    s.push_str(&bands(r, &f));
-    s.push_str(&curves(r, &f));
-    s.push_str(&x_axis(r, &f));
-    s.push_str("</svg>");
-    s
-}
-
-fn y_axis(f: &Frame) -> String {
-    let mut s = String::new();
-    let (a, b) = (f.lo.log10().ceil() as i32, f.hi.log10().floor() as i32);
-    // Every decade, thinned to at most 8 labels.
-    let every = (((b - a + 1) as f64 / 8.0).ceil() as i32).max(1);
-    for k in (a..=b).filter(|k| (k - a) % every == 0) {
-        let y = f.y(10f64.powi(k));
-        let _ = writeln!(
-            s,
-            "<line class=\"grid\" x1=\"{}\" y1=\"{y:.1}\" x2=\"{}\" y2=\"{y:.1}\"/>\
-             <text x=\"{}\" y=\"{:.1}\" text-anchor=\"end\" class=\"dim\">{}</text>",
-            f.left,
-            f.right,
-            f.left - 6.0,
-            y + 4.0,
-            decade(k)
-        );
-    }
-    let _ = writeln!(
-        s,
-        "<line class=\"axis\" x1=\"{l}\" y1=\"{t}\" x2=\"{l}\" y2=\"{b}\"/>\
-         <line class=\"axis\" x1=\"{l}\" y1=\"{b}\" x2=\"{r}\" y2=\"{b}\"/>\
-         <text transform=\"translate(16 {:.1}) rotate(-90)\" text-anchor=\"middle\">squared \
-         error (log scale)</text>",
-        (f.top + f.bottom) / 2.0,
-        l = f.left,
-        t = f.top,
-        b = f.bottom,
-        r = f.right
-    );
-    s
-}
-
-fn x_axis(r: &SweepReport, f: &Frame) -> String {
-    let mut s = String::new();
-    let every = r.points.len().div_ceil(21).max(1);
-    for (i, p) in r.points.iter().enumerate().filter(|(i, _)| i % every == 0) {
-        let _ = writeln!(
-            s,
-            "<text x=\"{:.1}\" y=\"{:.1}\" text-anchor=\"middle\" class=\"dim\">{}</text>",
-            f.x(i),
-            f.bottom + 16.0,
-            esc(&p.label)
-        );
-    }
-    let what = match r.settings.over {
-        crate::sweep::Over::Lambda => "GAE lambda",
-        crate::sweep::Over::Nstep => "n-step window n (steps)",
-        crate::sweep::Over::Gamma => "discount gamma",
-    };
-    let _ = writeln!(
-        s,
-        "<text x=\"{:.1}\" y=\"{:.1}\" text-anchor=\"middle\">{what}</text>",
-        (f.left + f.right) / 2.0,
-        f.bottom + 40.0
-    );
-    s
-}
-
-/// The one-standard-error region (a column per point in it) and the MSE interval band
-/// (polygons over runs of points whose interval is defined).
-fn bands(r: &SweepReport, f: &Frame) -> String {
-    let mut s = String::new();
-    let step = (f.right - f.left) / f.n as f64;
-    // Pale columns over the plot and a solid strip on the floor, which stays readable
-    // where the columns cover the whole plot.
-    for &i in &r.choice.band {
-        let _ = writeln!(
-            s,
-            "<rect class=\"se\" x=\"{x:.1}\" y=\"{}\" width=\"{step:.1}\" height=\"{}\"/>\
-             <rect class=\"se-strip\" x=\"{x:.1}\" y=\"{:.1}\" width=\"{step:.1}\" \
-             height=\"5\"/>",
-            f.top,
-            f.bottom - f.top,
-            f.bottom - 5.0,
-            x = f.x(i) - step / 2.0,
-        );
-    }
-    let mut run: Vec<(usize, f64, f64)> = Vec::new();
-    let flush = |run: &mut Vec<(usize, f64, f64)>, s: &mut String| {
-        if run.len() >= 2 {
-            let upper = run
-                .iter()
-                .map(|(i, _, h)| format!("{:.1},{:.1}", f.x(*i), f.y(*h)));
-            let lower = run
-                .iter()
-                .rev()
-                .map(|(i, l, _)| format!("{:.1},{:.1}", f.x(*i), f.y(*l)));
-            let pts: Vec<String> = upper.chain(lower).collect();
-            let _ = writeln!(s, "<polygon class=\"band\" points=\"{}\"/>", pts.join(" "));
-        }
-        run.clear();
-    };
-    for (i, p) in r.points.iter().enumerate() {
-        match p
-            .mse_interval
-            .filter(|iv| iv.low.is_finite() && iv.high.is_finite())
-        {
-            Some(iv) => run.push((i, iv.low, iv.high)),
-            None => flush(&mut run, &mut s),
-        }
-    }
-    flush(&mut run, &mut s);
-    s
-}
-
-/// The three curves (broken where a figure is undefined) with a dot per point, and the
-/// recommended point circled.
-fn curves(r: &SweepReport, f: &Frame) -> String {
-    type Figure = fn(&crate::sweep::SweepPoint) -> Option<f64>;
-    let series: [(&str, Figure); 3] = [
-        ("bias", |p| p.bias_sq),
-        ("var", |p| p.variance),
-        ("mse", |p| p.mse),
-    ];
-    let mut s = String::new();
-    for (class, fig) in series {
-        let pts: Vec<(usize, f64)> = r
-            .points
-            .iter()
-            .enumerate()
-            .filter_map(|(i, p)| Some((i, fig(p).filter(|v| v.is_finite())?)))
-            .collect();
-        let mut path = String::new();
-        for (k, (i, v)) in pts.iter().enumerate() {
-            let joined = k > 0 && pts[k - 1].0 + 1 == *i;
-            let cmd = if joined { 'L' } else { 'M' };
-            let _ = write!(path, "{cmd}{:.1},{:.1} ", f.x(*i), f.y(*v));
-        }
-        let _ = writeln!(
-            s,
-            "<path class=\"line {class}\" d=\"{}\"/>",
-            path.trim_end()
-        );
-        for (i, v) in &pts {
-            let _ = write!(
-                s,
-                "<circle class=\"dot {class}\" cx=\"{:.1}\" cy=\"{:.1}\" r=\"3\"/>",
-                f.x(*i),
-                f.y(*v)
-            );
-        }
-        s.push('\n');
-    }
-    if let Some((i, m)) = r
-        .choice
-        .recommended
-        .and_then(|i| Some((i, r.points[i].mse?)))
-    {
-        let _ = writeln!(
-            s,
-            "<circle class=\"rec\" cx=\"{:.1}\" cy=\"{:.1}\" r=\"9\"/>",
-            f.x(i),
-            f.y(m)
-        );
-    }
-    s
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -401,11 +165,5 @@ mod tests {
     fn ticks_are_round_and_cover_the_range() {
         assert_eq!(ticks(4372.0), vec![0.0, 1000.0, 2000.0, 3000.0, 4000.0]);
         assert_eq!(ticks(9.0), vec![0.0, 2.0, 4.0, 6.0, 8.0]);
-        assert_eq!(decade(2), "100");
-        assert_eq!(decade(-1), "0.1");
-        assert_eq!(decade(7), "1e7");
-        assert_eq!(decade(4), "10000");
-        assert_eq!(decade(-3), "0.001");
-        assert_eq!(decade(0), "1");
     }
 }

@@ -110,6 +110,13 @@ pub fn inspect(r: &InspectReport) -> String {
             r.gamma
         );
     }
+    if let Some(state) = &r.bootstrap_state {
+        let _ = writeln!(
+            body,
+            "<p class=\"facts\">Bootstrap state for --value-net: {}.</p>",
+            esc(state)
+        );
+    }
     body.push_str("</section>\n");
     if let Some(p) = &r.policy {
         let _ = writeln!(
