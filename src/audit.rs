@@ -267,6 +267,7 @@ impl Ids {
 
 mod scoring;
 pub use scoring::{Scorer, Scores, scores};
+mod cosine;
 mod significance;
 
 /// The result of the single pass: one contribution row per episode, in canonical order.
@@ -585,7 +586,16 @@ pub fn statistics(
         bias_level: cfg.bias_level,
         multiplicity: cfg.multiplicity,
     };
-    stats::summarise_with(plan, reference, &point, &source, &scfg)
+    let (mut stats, signal) = stats::summarise_with(plan, reference, &point, &source, &scfg);
+    // cosine_half's interval from the episode jackknife, not the split cosines' spread.
+    for (k, st) in stats.iter_mut().enumerate() {
+        if let Some(c) = st.cosine_half {
+            let splits = (cfg.seed, cfg.splits);
+            let iv = cosine::interval(plan, contrib.view(), k, splits, c, cfg.confidence);
+            st.cosine_half_interval = iv;
+        }
+    }
+    (stats, signal)
 }
 
 /// Runs the whole audit over an opened log.
@@ -702,3 +712,6 @@ mod tests;
 
 #[cfg(test)]
 mod props;
+
+#[cfg(test)]
+mod coverage;
