@@ -26,6 +26,8 @@ use std::io::{BufWriter, Write};
 
 #[path = "rollouts/actor.rs"]
 mod actor;
+#[path = "rollouts/advantages.rs"]
+mod advantages;
 #[path = "rollouts/net_scenarios.rs"]
 mod net_scenarios;
 
@@ -92,6 +94,16 @@ struct Args {
     /// (the mistake gradaudit warns about)
     #[arg(long)]
     log_clipped: bool,
+    /// Rover: append a training stack's own `adv` (GAE) and `value_target` columns, computed in
+    /// float32; `truncation-as-termination` makes a deliberate fault (see rollouts/advantages.rs)
+    #[arg(long, value_enum)]
+    advantages: Option<advantages::Advantages>,
+    /// Discount of the appended columns
+    #[arg(long, default_value_t = 0.99)]
+    adv_gamma: f64,
+    /// Lambda of the appended columns
+    #[arg(long, default_value_t = 0.95)]
+    adv_lambda: f64,
 }
 
 fn q6(x: f64) -> f64 {
@@ -364,6 +376,15 @@ fn main() -> std::io::Result<()> {
         }
     };
     out.w.flush()?;
+    drop(out);
+    if let Some(mode) = a.advantages {
+        assert!(a.out != "-", "--advantages rewrites the --out file");
+        let text = std::fs::read_to_string(&a.out)?;
+        std::fs::write(
+            &a.out,
+            advantages::append(&text, mode, a.adv_gamma, a.adv_lambda),
+        )?;
+    }
     if let Some(path) = &a.policy_out {
         let mut v = policy;
         let scenario = match a.scenario {

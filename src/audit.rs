@@ -49,6 +49,27 @@ pub struct AuditConfig {
     pub bias_level: f64,
     /// Which error rate the bias decisions control across the table.
     pub multiplicity: stats::Multiplicity,
+    /// How episodes are resampled (the multinomial bootstrap, or the streamed Poisson one).
+    pub resampling: Resampling,
+}
+
+/// The bootstrap scheme of an audit.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Resampling {
+    /// n draws with replacement from the n episodes (the contribution matrix is held).
+    Multinomial,
+    /// Independent Poisson(1) weights keyed by episode id, summed as episodes finish
+    /// (resample/poisson.rs): memory independent of the episode count, shards merge exactly.
+    Poisson,
+}
+
+impl Resampling {
+    pub fn name(self) -> &'static str {
+        match self {
+            Resampling::Multinomial => "multinomial",
+            Resampling::Poisson => "poisson",
+        }
+    }
 }
 
 /// Where score vectors come from when both are available.
@@ -78,6 +99,7 @@ impl Default for AuditConfig {
             value_net: None,
             bias_level: stats::BIAS_LEVEL,
             multiplicity: stats::Multiplicity::Holm,
+            resampling: Resampling::Multinomial,
         }
     }
 }
@@ -304,23 +326,35 @@ fn check_resampled(plan: &Plan, cfg: &AuditConfig) -> Result<u128> {
     Ok(need)
 }
 
-/// Reads every episode, reducing each to its contribution row under `plan`. Fails with fewer
-/// than 2 episodes, and as soon as the rows (with the resampled rows to come) would exceed the
-/// memory budget.
-pub fn collect(
+/// What the single pass leaves besides the contribution rows: the input summary (complete but
+/// for the critic's explained variance), the warnings, and the critics' exact sums.
+pub struct Pass {
+    pub input: InputSummary,
+    pub warnings: crate::warnings::Warnings,
+    /// Explained variance of the recorded values, then of the fitted ones.
+    pub recorded: crate::critic::ExplainedVariance,
+    pub fitted: crate::critic::ExplainedVariance,
+}
+
+/// The single pass over the log: scores each episode, applies the fitted critic or value
+/// network, counts it, and hands its id and contribution row to `sink` (the episode is dropped
+/// afterwards). `sink` sees the episodes in the order they end.
+pub fn pass<F>(
     mut reader: LogReader,
     plan: &Plan,
     cfg: &AuditConfig,
     scores: &Scores,
-) -> Result<Collected> {
-    let width = plan.width();
-    let fixed = check_resampled(plan, cfg)?;
-    // Per episode: its contribution row, its id, and its share of the resampling scratch.
-    let per_episode = 8 * width as u128 + Ids::PER_EPISODE + crate::resample::scratch_bytes(1);
-    let mut ids = Ids::default();
-    let mut flat: Vec<f64> = Vec::new();
+    mut sink: F,
+) -> Result<Pass>
+where
+    F: FnMut(&[u8], &[f64], &InputSummary) -> Result<()>,
+{
+    let mut row = vec![0.0; plan.width()];
     let mut work = Work::default();
-    let mut input = InputSummary::default();
+    let mut input = InputSummary {
+        file: reader.file().to_string(),
+        ..InputSummary::default()
+    };
     // Exact sums (critic/exact.rs): the figures do not depend on the order episodes end in.
     let (mut recorded, mut fitted) = (
         crate::critic::ExplainedVariance::default(),
@@ -353,25 +387,8 @@ pub fn collect(
             End::Terminated => input.terminated += 1,
             End::Truncated { .. } => input.truncated += 1,
         }
-        let n = ids.len() as u128 + 1;
-        let need = fixed
-            .saturating_add(n.saturating_mul(per_episode))
-            .saturating_add((ids.bytes.len() + ep.key.len()) as u128);
-        cfg.budget.check(
-            need,
-            || {
-                format!(
-                    "{}: {n} episodes x {width} summary columns (plus {} resampled rows)",
-                    reader.file(),
-                    cfg.resamples as u128 + 2 * cfg.splits as u128
-                )
-            },
-            "audit fewer estimators, use fewer --resamples, or raise --max-memory",
-        )?;
-        let start = flat.len();
-        flat.resize(start + width, 0.0);
-        plan.contribute(&ep, &mut work, &mut flat[start..]);
-        ids.push(&ep.key);
+        plan.contribute(&ep, &mut work, &mut row);
+        sink(&ep.key, &row, &input)?;
     }
     finish_input(
         &mut input,
@@ -382,18 +399,6 @@ pub fn collect(
         [&recorded, &fitted],
         value_net.as_ref(),
     );
-    let n = ids.len();
-    if n < 2 {
-        return Err(Error::usage(format!(
-            "{}: the log holds {n} episode(s); an analysis needs at least 2 to estimate a variance",
-            input.file
-        )));
-    }
-    // Canonical order, so the same episodes in another row order give identical numbers.
-    let order = ids.order();
-    drop(ids);
-    permute_rows(&mut flat, width, &order);
-    let contrib = Array2::from_shape_vec((n, width), flat).expect("n x width values");
     if let Some(v) = input.value_net.as_mut() {
         v.explained_variance = fitted.value();
     }
@@ -405,11 +410,71 @@ pub fn collect(
     if let Some(c) = &clip {
         c.warn(&mut warnings);
     }
-    Ok(Collected {
-        contrib,
+    Ok(Pass {
         input,
         warnings,
+        recorded,
+        fitted,
     })
+}
+
+/// Reads every episode, reducing each to its contribution row under `plan`. Fails with fewer
+/// than 2 episodes, and as soon as the rows (with the resampled rows to come) would exceed the
+/// memory budget.
+pub fn collect(
+    reader: LogReader,
+    plan: &Plan,
+    cfg: &AuditConfig,
+    scores: &Scores,
+) -> Result<Collected> {
+    let width = plan.width();
+    let fixed = check_resampled(plan, cfg)?;
+    // Per episode: its contribution row, its id, and its share of the resampling scratch.
+    let per_episode = 8 * width as u128 + Ids::PER_EPISODE + crate::resample::scratch_bytes(1);
+    let mut ids = Ids::default();
+    let mut flat: Vec<f64> = Vec::new();
+    let pass = pass(reader, plan, cfg, scores, |key, row, input| {
+        let n = ids.len() as u128 + 1;
+        let need = fixed
+            .saturating_add(n.saturating_mul(per_episode))
+            .saturating_add((ids.bytes.len() + key.len()) as u128);
+        cfg.budget.check(
+            need,
+            || {
+                format!(
+                    "{}: {n} episodes x {width} summary columns (plus {} resampled rows)",
+                    input.file,
+                    cfg.resamples as u128 + 2 * cfg.splits as u128
+                )
+            },
+            "audit fewer estimators, use fewer --resamples, or raise --max-memory",
+        )?;
+        flat.extend_from_slice(row);
+        ids.push(key);
+        Ok(())
+    })?;
+    let n = ids.len();
+    check_episodes(n, &pass.input.file)?;
+    // Canonical order, so the same episodes in another row order give identical numbers.
+    let order = ids.order();
+    drop(ids);
+    permute_rows(&mut flat, width, &order);
+    let contrib = Array2::from_shape_vec((n, width), flat).expect("n x width values");
+    Ok(Collected {
+        contrib,
+        input: pass.input,
+        warnings: pass.warnings,
+    })
+}
+
+/// An analysis needs at least 2 episodes to estimate a variance.
+pub fn check_episodes(n: usize, file: &str) -> Result<()> {
+    if n < 2 {
+        return Err(Error::usage(format!(
+            "{file}: the log holds {n} episode(s); an analysis needs at least 2 to estimate a variance"
+        )));
+    }
+    Ok(())
 }
 
 /// Completes the input summary once the log is read: file, counts, where scores came from, and
@@ -598,10 +663,20 @@ pub fn statistics(
     (stats, signal)
 }
 
-/// Runs the whole audit over an opened log.
-pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
+/// What an audit fixes before reading episodes: where scores come from, the estimators and
+/// their contribution layout.
+pub struct Prepared {
+    pub scores: Scores,
+    pub plan: Plan,
+    /// Index of the reference in `plan.estimators`.
+    pub reference: usize,
+    pub skipped: Vec<Skipped>,
+}
+
+/// Checks the config against the log's header and plans the contributions.
+pub fn prepare(reader: &LogReader, cfg: &AuditConfig) -> Result<Prepared> {
     cfg.validate()?;
-    let scores = scores(&reader, cfg)?;
+    let scores = scores(reader, cfg)?;
     let d = scores.dim;
     if let Some(k) = cfg.sketch {
         if scores.policy.is_some() {
@@ -629,15 +704,83 @@ pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
         .expect("select() keeps the reference");
     // The moment columns give each replicate its own variance, for the noise scale's interval.
     let plan = Plan::new(estimators, cfg.gamma, d).with_moments(reference);
+    Ok(Prepared {
+        scores,
+        plan,
+        reference,
+        skipped,
+    })
+}
 
-    let data = collect(reader, &plan, cfg, &scores)?;
+impl Prepared {
+    /// The layout the report is built on.
+    pub fn layout(&self, cfg: &AuditConfig) -> Layout<'_> {
+        let rescale = match (cfg.sketch, &self.scores.projection) {
+            (Some(k), _) => Some((k, crate::sketch::Source::Logged)),
+            (None, Some(p)) => Some((p.k(), crate::sketch::Source::Computed { full_dim: p.dim() })),
+            (None, None) => None,
+        };
+        Layout {
+            plan: &self.plan,
+            reference: self.reference,
+            skipped: &self.skipped,
+            rescale,
+        }
+    }
+}
+
+/// What a report needs of an audit besides its statistics (also rebuilt from shard files).
+pub struct Layout<'a> {
+    pub plan: &'a Plan,
+    pub reference: usize,
+    pub skipped: &'a [Skipped],
+    /// Projection count and source when the figures are rescaled from projected scores.
+    pub rescale: Option<(usize, crate::sketch::Source)>,
+}
+
+impl Layout<'_> {
+    /// Whether the statistics must keep their per-coordinate terms (sketched or projected
+    /// scores).
+    pub fn per_coord(&self) -> bool {
+        self.rescale.is_some()
+    }
+}
+
+/// Runs the whole audit over an opened log.
+pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
+    let prep = prepare(&reader, cfg)?;
+    let layout = prep.layout(cfg);
+    if cfg.resampling == Resampling::Poisson {
+        let mut part = streamed::accumulate(reader, &prep, cfg)?;
+        return streamed::finish(&mut part, &layout, cfg);
+    }
+    let data = collect(reader, &prep.plan, cfg, &prep.scores)?;
     let n = data.contrib.nrows();
     let mut warnings = data.warnings.clone();
     few_episodes_warning(n, &mut warnings);
-    let per_coord = cfg.sketch.is_some() || scores.projection.is_some();
-    let (stats, signal) = statistics(&data, &plan, reference, cfg, per_coord);
-    let input = data.input.clone();
+    let stats = statistics(&data, &prep.plan, prep.reference, cfg, layout.per_coord());
+    let scale = |k: usize| {
+        let iv = significance::interval(&data, &prep.plan, k, prep.reference, cfg);
+        (iv, None)
+    };
+    Ok(report(
+        &layout,
+        cfg,
+        (data.input.clone(), warnings),
+        stats,
+        &scale,
+    ))
+}
 
+/// The report model from an audit's statistics, whichever resampler produced them.
+pub fn report(
+    layout: &Layout,
+    cfg: &AuditConfig,
+    (input, warnings): (InputSummary, crate::warnings::Warnings),
+    (stats, signal): (Vec<stats::EstimatorStats>, stats::Signal),
+    scale: &significance::ScaleIntervals,
+) -> AuditReport {
+    let (plan, reference) = (layout.plan, layout.reference);
     let refs = ReferenceFigures::of(&stats[reference], &signal);
     let per_coord: Vec<crate::sketch::CoordFigures> = plan
         .estimators
@@ -662,12 +805,12 @@ pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
     crate::report::sort_rows(&mut estimators);
     let verdict = Verdict::from_rows(&estimators, refs.signal);
     let noise_scale = significance::noise_scales(
-        &data,
-        &plan,
+        plan,
         reference,
-        cfg,
+        &input,
         &estimators,
         verdict.best.as_deref(),
+        scale,
     );
     let (sig, gap) = (
         significance::significance(&estimators, cfg),
@@ -685,27 +828,26 @@ pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
             target_snr: cfg.target_snr,
             reference: cfg.reference.to_string(),
             splits: cfg.splits,
+            resampling: cfg.resampling.name().to_string(),
         },
         signal: refs.signal,
         signal_interval: refs.signal_interval,
         reference_variance: refs.variance,
         estimators,
-        skipped,
         significance: sig,
         baseline_gap: gap,
         noise_scale,
+        skipped: layout.skipped.to_vec(),
         verdict,
         warnings,
     };
-    if let Some(k) = cfg.sketch {
-        let source = crate::sketch::Source::Logged;
+    if let Some((k, source)) = layout.rescale {
         crate::sketch::rescale(&mut report, k, source, &per_coord, signal_coords);
-    } else if let Some(p) = &scores.projection {
-        let source = crate::sketch::Source::Computed { full_dim: p.dim() };
-        crate::sketch::rescale(&mut report, p.k(), source, &per_coord, signal_coords);
     }
-    Ok(report)
+    report
 }
+
+pub mod streamed;
 
 #[cfg(test)]
 mod tests;

@@ -48,6 +48,42 @@ pub enum Command {
     Sweep(SweepArgs),
     /// Audit a log and check rules on the result: exit 1 when one fails (for CI)
     Gate(GateArgs),
+    /// Check a logged advantage or value-target column against the reference computation;
+    /// name the known fault that explains a difference (exit 1 when they differ)
+    Crosscheck(CrosscheckArgs),
+    /// Audit one part of a log into a shard file (Poisson resampling), for `merge`
+    Shard(ShardArgs),
+    /// Merge shard files into the audit report of all their episodes
+    Merge(MergeArgs),
+}
+
+#[derive(Debug, Args)]
+#[command(
+    after_help = "Every shard of one audit must be written with the same options; each episode \
+    must be in exactly one shard. The shards' Poisson weights are keyed by episode id, so the \
+    merged report equals `audit --resampling poisson` of the whole log.\n\
+    Example: gradaudit shard part-3.csv.gz --out part-3.shard; gradaudit merge part-*.shard"
+)]
+pub struct ShardArgs {
+    #[command(flatten)]
+    pub log: LogArgs,
+
+    #[command(flatten)]
+    pub audit: AuditOptions,
+
+    /// The shard file to write (safetensors, format gradaudit.shard/2; see the README)
+    #[arg(long, value_name = "FILE")]
+    pub out: String,
+}
+
+#[derive(Debug, Args)]
+pub struct MergeArgs {
+    /// Shard files written by `gradaudit shard`
+    #[arg(required = true, value_name = "SHARD")]
+    pub shards: Vec<String>,
+
+    #[command(flatten)]
+    pub output: ReportOutput,
 }
 
 /// How to read the log (shared by every command).
@@ -103,6 +139,8 @@ pub struct LogArgs {
 pub enum InspectFormat {
     Table,
     Json,
+    /// One self-contained HTML page
+    Html,
 }
 
 #[derive(Debug, Args)]
@@ -133,6 +171,8 @@ pub enum AuditFormat {
     Json,
     Csv,
     Markdown,
+    /// One self-contained HTML page (figures inline, no network access)
+    Html,
 }
 
 /// What an audit computes (shared by `audit` and `gate`).
@@ -220,6 +260,19 @@ pub struct AuditOptions {
     /// safetensors weights) for the value-based estimators, instead of a value column
     #[arg(long, value_name = "FILE")]
     pub value_net: Option<String>,
+
+    /// Bootstrap scheme: `multinomial` draws N episodes with replacement (holds one summary row
+    /// per episode); `poisson` weights each episode Poisson(1) per replicate, keyed by its id,
+    /// and sums as episodes end (memory independent of the episode count; `shard` files of it
+    /// merge exactly)
+    #[arg(long, value_enum, default_value_t = ResamplingArg::Multinomial)]
+    pub resampling: ResamplingArg,
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum ResamplingArg {
+    Multinomial,
+    Poisson,
 }
 
 #[derive(Debug, Clone, Copy, ValueEnum)]
@@ -255,6 +308,11 @@ pub struct ReportOutput {
     /// variance; sweep, bias^2, variance and MSE against the swept parameter
     #[arg(long, value_name = "FILE.svg")]
     pub plot: Option<String>,
+
+    /// Table format: every column in one table, wider than 100 columns (by default the
+    /// audit's interval ends go in a second block, and the sweep leaves out the estimator names)
+    #[arg(long)]
+    pub wide: bool,
 }
 
 /// The checked outputs of `audit` or `sweep`: the report and the optional plot.
@@ -267,6 +325,9 @@ struct ReportSlots {
 impl ReportOutput {
     /// Checks every output path before any reading; none may be one of `inputs`.
     fn check(&self, inputs: &[&str]) -> Result<ReportSlots> {
+        if self.wide && !matches!(self.format, AuditFormat::Table) {
+            return Err(Error::usage("--wide applies to --format table only"));
+        }
         let mut outputs = output::Outputs::new(inputs);
         let out = outputs.add("--out", &self.out)?;
         let plot = self
@@ -341,6 +402,11 @@ impl SweepArgs {
             ));
         }
         let audit = self.audit.config(&self.log)?;
+        if audit.resampling != crate::audit::Resampling::Multinomial {
+            return Err(Error::usage(
+                "sweep resamples with the multinomial bootstrap only; drop --resampling",
+            ));
+        }
         let over = match self.over {
             SweepOver::Lambda => Over::Lambda,
             SweepOver::Nstep => Over::Nstep,
@@ -413,9 +479,19 @@ impl LogArgs {
     }
 
     pub fn open(&self) -> Result<LogReader> {
+        self.open_with(&self.read_options()?)
+    }
+
+    /// Opens the log and its further files (`MORE_LOGS`) as one log.
+    pub fn open_with(&self, options: &ReadOptions) -> Result<LogReader> {
+        LogReader::open_many(&self.paths(), options)
+    }
+
+    /// Every input log path: the first and the further ones.
+    pub fn paths(&self) -> Vec<String> {
         let mut paths = vec![self.log.clone()];
         paths.extend(self.more_logs.iter().cloned());
-        LogReader::open_many(&paths, &self.read_options()?)
+        paths
     }
 }
 
@@ -424,6 +500,8 @@ pub enum GateFormat {
     Text,
     Markdown,
     Json,
+    /// One self-contained HTML page: the checks, then the audit they were checked on
+    Html,
 }
 
 #[derive(Debug, Args)]
@@ -559,6 +637,10 @@ impl AuditOptions {
                 MultiplicityArg::Holm => crate::stats::Multiplicity::Holm,
                 MultiplicityArg::Bh => crate::stats::Multiplicity::Bh,
             },
+            resampling: match self.resampling {
+                ResamplingArg::Multinomial => crate::audit::Resampling::Multinomial,
+                ResamplingArg::Poisson => crate::audit::Resampling::Poisson,
+            },
             ..AuditConfig::default()
         };
         cfg.validate()?;
@@ -568,11 +650,20 @@ impl AuditOptions {
 
 impl AuditArgs {
     fn format(&self) -> Format {
-        match self.output.format {
+        self.output.report_format()
+    }
+}
+
+impl ReportOutput {
+    /// The report format these options ask for (audit and merge share it).
+    fn report_format(&self) -> Format {
+        match self.format {
+            AuditFormat::Table if self.wide => Format::WideTable,
             AuditFormat::Table => Format::Table,
             AuditFormat::Json => Format::Json,
             AuditFormat::Csv => Format::Csv,
             AuditFormat::Markdown => Format::Markdown,
+            AuditFormat::Html => Format::Html,
         }
     }
 }
@@ -612,6 +703,7 @@ fn run_inspect(a: InspectArgs) -> Result<()> {
             t
         }
         InspectFormat::Json => report::inspect::render_json(&report),
+        InspectFormat::Html => report::html::inspect(&report),
     };
     output::write("-", &text)?;
     Ok(())
@@ -624,6 +716,9 @@ pub fn run(cli: Cli) -> Result<u8> {
         Command::Audit(a) => return run_audit(a),
         Command::Sweep(s) => return run_sweep(s),
         Command::Gate(g) => return run_gate(g),
+        Command::Crosscheck(c) => return run_crosscheck(c),
+        Command::Shard(s) => run_shard(s)?,
+        Command::Merge(m) => run_merge(m)?,
     }
     Ok(exit::OK)
 }
@@ -632,16 +727,32 @@ impl AuditOptions {
     /// The input files of an audit that no output may replace (the log, the policy).
     fn inputs<'a>(&'a self, log: &'a LogArgs) -> Vec<&'a str> {
         let mut inputs = vec![log.log.as_str()];
+        inputs.extend(log.more_logs.iter().map(String::as_str));
         inputs.extend(self.policy.as_deref());
         inputs
     }
+}
+
+/// Opens the log for an audit, carrying the columns of `column:HEADER` estimators.
+fn open_for(log: &LogArgs, cfg: &AuditConfig) -> Result<LogReader> {
+    let mut options = log.read_options()?;
+    let mut logged: Vec<String> = Vec::new();
+    for e in cfg.estimators.iter().flatten().chain([&cfg.reference]) {
+        if let Estimator::Column(h) = e
+            && !logged.iter().any(|l| l == h)
+        {
+            logged.push(h.to_string());
+        }
+    }
+    options.columns.logged = logged;
+    log.open_with(&options)
 }
 
 fn run_audit(a: AuditArgs) -> Result<u8> {
     let mut cfg = a.audit.config(&a.log)?;
     let slots = a.output.check(&a.audit.inputs(&a.log))?;
     cfg.critic = a.audit.fit_critic(&a.log, cfg.gamma)?;
-    let report = audit::run(a.log.open()?, &cfg)?;
+    let report = audit::run(open_for(&a.log, &cfg)?, &cfg)?;
     slots.write(report::render(&report, a.format()), || {
         report::svg::audit_bars(&report)
     })?;
@@ -654,10 +765,11 @@ fn run_sweep(s: SweepArgs) -> Result<u8> {
     cfg.audit.critic = s.audit.fit_critic(&s.log, cfg.audit.gamma)?;
     let report = sweep::run(s.log.open()?, &cfg)?;
     let text = match s.output.format {
-        AuditFormat::Table => report::sweep::render_table(&report),
+        AuditFormat::Table => report::sweep::render_table_with(&report, s.output.wide),
         AuditFormat::Json => report::sweep::render_json(&report),
         AuditFormat::Csv => report::sweep::render_csv(&report),
         AuditFormat::Markdown => report::sweep::render_markdown(&report),
+        AuditFormat::Html => report::html::sweep(&report),
     };
     slots.write(text, || report::svg::sweep_plot(&report))?;
     Ok(exit::OK)
@@ -680,11 +792,16 @@ fn run_gate(g: GateArgs) -> Result<u8> {
     let baseline = g.baseline.as_deref().map(Baseline::load).transpose()?;
     gate::include_named(&mut cfg, &rules);
     cfg.critic = g.audit.fit_critic(&g.log, cfg.gamma)?;
-    let result = gate::run(audit::run(g.log.open()?, &cfg)?, &rules, baseline.as_ref())?;
+    let result = gate::run(
+        audit::run(open_for(&g.log, &cfg)?, &cfg)?,
+        &rules,
+        baseline.as_ref(),
+    )?;
     let text = match g.format {
         GateFormat::Text => report::gate::render_text(&result),
         GateFormat::Markdown => report::gate::render_markdown(&result),
         GateFormat::Json => report::gate::render_json(&result),
+        GateFormat::Html => report::html::gate(&result),
     };
     let mut texts = vec![(out, text)];
     if let Some(j) = junit {
@@ -705,4 +822,146 @@ pub enum MultiplicityArg {
     Holm,
     /// Benjamini and Hochberg (1995): false-discovery rate
     Bh,
+}
+
+#[derive(Debug, Clone, Copy, ValueEnum)]
+pub enum CrosscheckFormat {
+    Table,
+    Json,
+    Markdown,
+}
+
+#[derive(Debug, Args)]
+#[command(
+    after_help = "Example: gradaudit crosscheck rollouts.csv --advantage adv \
+    --estimator gae:0.95 --gamma 0.99\n\
+    Exit codes: 0 every checked column agrees, 1 a column differs, 2 bad usage or bad input."
+)]
+pub struct CrosscheckArgs {
+    #[command(flatten)]
+    pub log: LogArgs,
+
+    /// Header of the logged per-step advantage column to check
+    #[arg(long, value_name = "HEADER")]
+    pub advantage: Option<String>,
+
+    /// Header of the logged per-step value-target (return) column to check: advantage + V_t
+    #[arg(long = "returns", value_name = "HEADER")]
+    pub returns: Option<String>,
+
+    /// The computation the column claims to follow: gae:LAMBDA (or gae with --lambda),
+    /// nstep:N, or rtg_discounted (the discounted return, bootstrapped at truncation)
+    #[arg(long, default_value = "gae:0.95", value_name = "NAME")]
+    pub estimator: String,
+
+    /// Discount factor gamma of the claimed computation, in [0, 1]
+    #[arg(long, default_value_t = 0.99)]
+    pub gamma: f64,
+
+    /// Lambda of a GAE claim (overrides gae:L)
+    #[arg(long, value_name = "L")]
+    pub lambda: Option<f64>,
+
+    /// One absolute tolerance for every step, instead of the one chosen from the column's
+    /// precision and the magnitudes involved (see the README)
+    #[arg(long, value_name = "ABS")]
+    pub tolerance: Option<f64>,
+
+    /// Output format
+    #[arg(long, value_enum, default_value_t = CrosscheckFormat::Table)]
+    pub format: CrosscheckFormat,
+
+    /// Write the report here (atomically) instead of stdout
+    #[arg(long, value_name = "FILE", default_value = "-")]
+    pub out: String,
+}
+
+impl CrosscheckArgs {
+    /// The check's config: the claim, the columns and the tolerance.
+    pub fn config(&self) -> Result<crate::crosscheck::CheckConfig> {
+        if self.advantage.is_none() && self.returns.is_none() {
+            return Err(Error::usage(
+                "nothing to check: give --advantage HEADER and/or --returns HEADER",
+            ));
+        }
+        let name = match (self.estimator.trim(), self.lambda) {
+            ("gae", Some(l)) => format!("gae:{l}"),
+            ("gae", None) => return Err(Error::usage("--estimator gae needs --lambda L")),
+            (e, Some(l)) if e.starts_with("gae:") => format!("gae:{l}"),
+            (_, Some(_)) => return Err(Error::usage("--lambda applies to a gae estimator only")),
+            (e, None) => e.to_string(),
+        };
+        if !(0.0..=1.0).contains(&self.gamma) {
+            return Err(Error::usage(format!(
+                "--gamma {} must lie in [0, 1]",
+                self.gamma
+            )));
+        }
+        let claim = crate::crosscheck::Claimed::parse(&name, self.gamma)
+            .map_err(|e| Error::usage(format!("--estimator {e}")))?;
+        if let Some(t) = self.tolerance
+            && !(t > 0.0 && t.is_finite())
+        {
+            return Err(Error::usage("--tolerance must be a positive number"));
+        }
+        Ok(crate::crosscheck::CheckConfig {
+            claim,
+            advantage: self.advantage.clone(),
+            ret: self.returns.clone(),
+            tolerance: self.tolerance,
+            budget: self.log.budget()?,
+        })
+    }
+}
+
+fn run_crosscheck(c: CrosscheckArgs) -> Result<u8> {
+    let cfg = c.config()?;
+    let paths = c.log.paths();
+    let inputs: Vec<&str> = paths.iter().map(String::as_str).collect();
+    let mut outputs = output::Outputs::new(&inputs);
+    let out = outputs.add("--out", &c.out)?;
+    output::test_pause("checked");
+    let mut options = c.log.read_options()?;
+    options.columns.logged = cfg.columns().into_iter().map(|(_, h)| h).collect();
+    let report = crate::crosscheck::run(c.log.open_with(&options)?, &cfg)?;
+    let text = match c.format {
+        CrosscheckFormat::Table => report::crosscheck::render_table(&report),
+        CrosscheckFormat::Json => report::crosscheck::render_json(&report),
+        CrosscheckFormat::Markdown => report::crosscheck::render_markdown(&report),
+    };
+    outputs.write(vec![(out, text)])?;
+    Ok(if report.agree {
+        exit::OK
+    } else {
+        exit::CHECK_FAILED
+    })
+}
+
+/// `gradaudit shard`: one part of a log into a shard file.
+fn run_shard(a: ShardArgs) -> Result<()> {
+    let mut cfg = a.audit.config(&a.log)?;
+    let mut outputs = output::Outputs::new(&a.audit.inputs(&a.log));
+    let out = outputs.add("--out", &a.out)?;
+    output::test_pause("checked");
+    cfg.critic = a.audit.fit_critic(&a.log, cfg.gamma)?;
+    let shard = crate::shard::write_shard(a.log.open()?, &cfg)?;
+    outputs.write_bytes(vec![(out, crate::shard::encode(&shard)?)])
+}
+
+/// `gradaudit merge`: shard files into one audit report.
+fn run_merge(m: MergeArgs) -> Result<()> {
+    let inputs: Vec<&str> = m.shards.iter().map(String::as_str).collect();
+    let slots = m.output.check(&inputs)?;
+    let mut shards = Vec::new();
+    for path in &m.shards {
+        let bytes = std::fs::read(path).map_err(|e| Error::io(path, e))?;
+        shards.push(crate::shard::MergeInput {
+            name: path.clone(),
+            shard: crate::shard::decode(path, &bytes)?,
+        });
+    }
+    let report = crate::shard::merged_report(shards)?;
+    slots.write(report::render(&report, m.output.report_format()), || {
+        report::svg::audit_bars(&report)
+    })
 }

@@ -102,6 +102,23 @@ impl ExplainedVariance {
         self.e2.merge(&other.e2);
     }
 
+    /// The accumulator's state (episode-step count and the four exact sums), for shard files.
+    pub fn to_parts(&self) -> (u64, [Vec<f64>; 4]) {
+        let sums = [&self.g, &self.g2, &self.e, &self.e2].map(|s| s.to_parts());
+        (self.n, sums)
+    }
+
+    /// The accumulator [`ExplainedVariance::to_parts`] described, or None if a sum is malformed.
+    pub fn from_parts(n: u64, sums: &[Vec<f64>; 4]) -> Option<ExplainedVariance> {
+        Some(ExplainedVariance {
+            n,
+            g: ExactSum::from_parts(&sums[0])?,
+            g2: ExactSum::from_parts(&sums[1])?,
+            e: ExactSum::from_parts(&sums[2])?,
+            e2: ExactSum::from_parts(&sums[3])?,
+        })
+    }
+
     pub fn value(&self) -> Option<f64> {
         if self.n < 2 {
             return None;

@@ -24,6 +24,11 @@ pub struct Episode {
     /// Line of each step's row in the log, for messages about one step (empty for episodes
     /// built in memory).
     pub lines: Vec<u64>,
+    /// Logged per-step columns asked for by name (`ColumnSpec::logged`), row-major
+    /// (`T x logged_names.len()`): a training stack's own advantages or value targets.
+    pub logged: Vec<f64>,
+    /// The headers of the logged columns, in the order of `logged`'s rows.
+    pub logged_names: std::sync::Arc<[String]>,
     pub rewards: Vec<f64>,
     pub values: Option<Vec<f64>>,
     pub q: Option<Vec<f64>>,
@@ -55,6 +60,8 @@ impl Episode {
             key: raw.to_vec(),
             first_line,
             lines: Vec::new(),
+            logged: Vec::new(),
+            logged_names: layout.logged.clone(),
             rewards: Vec::new(),
             values: layout.value.then(Vec::new),
             q: layout.q.then(Vec::new),
@@ -91,6 +98,13 @@ impl Episode {
         }
     }
 
+    /// The logged column `name` at every step, when the episode carries it.
+    pub fn logged_column(&self, name: &str) -> Option<Vec<f64>> {
+        let k = self.logged_names.iter().position(|n| n == name)?;
+        let w = self.logged_names.len();
+        Some((0..self.len()).map(|t| self.logged[t * w + k]).collect())
+    }
+
     /// Sum of rewards (the undiscounted return).
     pub fn total_reward(&self) -> f64 {
         self.rewards.iter().sum()
@@ -98,7 +112,7 @@ impl Episode {
 }
 
 /// Which optional per-step arrays an episode carries, and the vector widths.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+#[derive(Debug, Clone, PartialEq, Eq, Default)]
 pub struct Layout {
     pub value: bool,
     pub q: bool,
@@ -106,4 +120,6 @@ pub struct Layout {
     pub score_dim: usize,
     pub obs_dim: usize,
     pub act_dim: usize,
+    /// Headers of the logged per-step columns carried as they are (see `Episode::logged`).
+    pub logged: std::sync::Arc<[String]>,
 }

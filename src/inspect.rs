@@ -96,6 +96,8 @@ impl Summary {
 
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct InspectReport {
+    /// The program and the wire schema (`gradaudit.inspect/1`), as in the other commands' JSON.
+    pub tool: crate::report::Tool,
     pub file: String,
     pub rows: u64,
     pub episodes: u64,
@@ -180,6 +182,10 @@ pub fn run(
         .map(|c| schema.headers[c - 1].clone())
         .collect();
     Ok(InspectReport {
+        tool: crate::report::Tool {
+            schema: "gradaudit.inspect/1",
+            ..crate::report::Tool::current()
+        },
         file: reader.file().to_string(),
         rows: reader.rows(),
         episodes: returns.len() as u64,

@@ -161,6 +161,12 @@ impl Outputs {
     /// written). Files are staged to temporary files first and renamed only when all are
     /// complete; a failure before that leaves every existing file untouched.
     pub fn write(&self, texts: Vec<(Slot, String)>) -> Result<()> {
+        let bytes = texts.into_iter().map(|(s, t)| (s, t.into_bytes()));
+        self.write_bytes(bytes.collect())
+    }
+
+    /// [`Outputs::write`] for binary outputs (shard files).
+    pub fn write_bytes(&self, texts: Vec<(Slot, Vec<u8>)>) -> Result<()> {
         let mut staged = Vec::new();
         let mut stdout = None;
         for (slot, text) in &texts {
@@ -321,7 +327,7 @@ fn stage<'a>(
     target: &'a Target,
     path: &Path,
     keep: Option<&Kept>,
-    text: &str,
+    text: &[u8],
 ) -> Result<Staged<'a>> {
     let mut builder = tempfile::Builder::new();
     builder.prefix(".gradaudit-").suffix(".tmp");
@@ -345,7 +351,7 @@ fn stage<'a>(
     let file = staged.tmp.as_ref().expect("just created").as_file();
     let mut writer = file;
     writer
-        .write_all(text.as_bytes())
+        .write_all(text)
         .and_then(|_| match keep {
             // Set after the write so the file is never more open than the one it replaces.
             Some(k) => {
@@ -403,9 +409,9 @@ fn rename_all(mut staged: Vec<Staged>) -> Result<()> {
     Ok(())
 }
 
-fn write_stdout(text: &str) -> Result<()> {
+fn write_stdout(text: &[u8]) -> Result<()> {
     let mut out = std::io::stdout().lock();
-    match out.write_all(text.as_bytes()).and_then(|_| out.flush()) {
+    match out.write_all(text).and_then(|_| out.flush()) {
         // A closed pipe (`| head`) is not an error of ours.
         Err(e) if e.kind() == std::io::ErrorKind::BrokenPipe => Ok(()),
         other => other.map_err(|e| Error::io("<stdout>", e)),

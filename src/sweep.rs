@@ -519,7 +519,7 @@ pub fn choose(points: &[SweepPoint], over: Over) -> Choice {
     if band.len() == points.len() && points.len() > 1 {
         text.push_str(
             "; every grid point is within one standard error: this log cannot tell the settings \
-             apart, and more episodes would",
+             apart, and more episodes would narrow the band",
         );
     } else {
         // An edge of the grid matters only where the parameter could go further.

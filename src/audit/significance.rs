@@ -5,6 +5,7 @@
 use super::{AuditConfig, Collected, Resampler};
 use crate::contrib::Plan;
 use crate::report::EstimatorRow;
+use crate::report::InputSummary;
 use crate::report::significance::{BaselineGap, NoiseScale, Significance};
 use crate::resample;
 use crate::stats::{ReplicateGradients, noise};
@@ -21,14 +22,23 @@ pub fn significance(rows: &[EstimatorRow], cfg: &AuditConfig) -> Significance {
     }
 }
 
+/// A resampler's interval of estimator k's B_simple, with a note on how it was formed when that
+/// needs saying.
+pub type ScaleIntervals<'a> =
+    dyn Fn(usize) -> (Option<noise::ScaleInterval>, Option<&'static str>) + 'a;
+
 /// B_simple for the reference and for the lowest-MSE estimator (once if they are the same).
+///
+/// `interval(k)` is the resampler's interval of estimator k's B_simple ([`interval`] for the
+/// multinomial bootstrap, [`interval_from_rows`] for the Poisson one and merged shards), with
+/// the note to print beside it.
 pub fn noise_scales(
-    data: &Collected,
     plan: &Plan,
     reference: usize,
-    cfg: &AuditConfig,
+    input: &InputSummary,
     rows: &[EstimatorRow],
     best: Option<&str>,
+    interval: &ScaleIntervals,
 ) -> Vec<NoiseScale> {
     let name = |k: usize| plan.estimators[k].to_string();
     let mut which = vec![(reference, "reference")];
@@ -36,7 +46,7 @@ pub fn noise_scales(
     if let Some(k) = chosen.filter(|&k| k != reference) {
         which.push((k, "chosen"));
     }
-    let per_step = data.input.steps as f64 / data.input.episodes.max(1) as f64;
+    let per_step = input.steps as f64 / input.episodes.max(1) as f64;
     which
         .into_iter()
         .map(|(k, role)| {
@@ -50,9 +60,9 @@ pub fn noise_scales(
                     None,
                     Some("interval computed for per-episode estimators only".to_string()),
                 ),
-                Some(_) => match interval(data, plan, k, reference, cfg) {
-                    Some(iv) => (Some(iv), None),
-                    None => (None, Some("interval undefined".to_string())),
+                Some(_) => match interval(k) {
+                    (Some(iv), note) => (Some(iv), note.map(str::to_string)),
+                    (None, _) => (None, Some("interval undefined".to_string())),
                 },
             };
             NoiseScale {
@@ -68,8 +78,9 @@ pub fn noise_scales(
         .collect()
 }
 
-/// The BCa interval of B_simple for per-episode estimator k (see stats/noise.rs).
-fn interval(
+/// The BCa interval of B_simple for per-episode estimator k (see stats/noise.rs), from the
+/// multinomial bootstrap and the episode jackknife.
+pub fn interval(
     data: &Collected,
     plan: &Plan,
     k: usize,
@@ -134,6 +145,31 @@ fn interval(
         })
         .collect();
     noise::interval(reps, estimate, &jack, cfg.confidence)
+}
+
+/// The interval of B_simple for per-episode estimator k from replicate mean rows (the Poisson
+/// bootstrap's, of one pass or of merged shards): bias-corrected (BC) but without the
+/// acceleration, since the streamed sums keep no per-episode rows for a jackknife (its third
+/// moments cannot be recovered from sums of rows). `n` is the episode count (a Poisson
+/// replicate's weight sum differs from it by about sqrt(n), a second-order difference here).
+pub fn interval_from_rows(
+    plan: &Plan,
+    (point, replicates): (&[f64], ndarray::ArrayView2<f64>),
+    n: usize,
+    (k, reference): (usize, usize),
+    confidence: f64,
+) -> Option<noise::ScaleInterval> {
+    let start = plan.moment_start()?;
+    let (ck, cr) = (plan.columns(k), plan.columns(reference));
+    let (qk, qr) = (start + 2 * k, start + 2 * reference);
+    let at = |mean: &[f64]| {
+        noise::reciprocal(n, &mean[ck.clone()], mean[qk], &mean[cr.clone()], mean[qr])
+    };
+    let reps: Vec<f64> = replicates
+        .outer_iter()
+        .map(|row| at(row.as_slice().expect("mean rows are contiguous")))
+        .collect();
+    noise::interval_bc(reps, at(point), confidence)
 }
 
 /// The user's baseline (the critic's value_baseline, else mean_baseline) against the

@@ -75,6 +75,39 @@ impl ExactSum {
         }
     }
 
+    /// The sum's state as numbers, for shard files: `[flag, special, partials...]`, flag 1 when
+    /// a non-finite term or overflow is held in `special` (else both 0).
+    pub fn to_parts(&self) -> Vec<f64> {
+        let mut out = vec![
+            f64::from(u8::from(self.special.is_some())),
+            self.special.unwrap_or(0.0),
+        ];
+        out.extend(&self.partials);
+        out
+    }
+
+    /// The sum [`ExactSum::to_parts`] described, or None when `parts` cannot be one (too short,
+    /// a bad flag, or partials that are not finite).
+    pub fn from_parts(parts: &[f64]) -> Option<ExactSum> {
+        let (flag, special, partials) = match parts {
+            [f, s, rest @ ..] => (*f, *s, rest),
+            _ => return None,
+        };
+        if !(flag == 0.0 || flag == 1.0) || partials.iter().any(|p| !p.is_finite()) {
+            return None;
+        }
+        // Re-adding the partials keeps the invariant (non-overlapping, increasing) whatever the
+        // file held; for a file this build wrote it gives back the same partials.
+        let mut sum = ExactSum::default();
+        for &p in partials {
+            sum.add(p);
+        }
+        if flag == 1.0 {
+            sum.special = Some(special);
+        }
+        Some(sum)
+    }
+
     /// The exact sum, correctly rounded to the nearest double (ties to even).
     pub fn value(&self) -> f64 {
         if let Some(s) = self.special {

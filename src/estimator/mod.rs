@@ -42,6 +42,10 @@ pub enum Estimator {
     /// (Peters and Schaal 2008, the per-decision G(PO)MDP form), per time bin, estimated from
     /// the batch (see contrib.rs).
     MinvarRtg,
+    /// Psi_t = a logged per-step column (a training stack's own advantages), by header. The
+    /// header is interned for the life of the run (`Box::leak`, a few bytes per name parsed) so
+    /// that estimators stay `Copy`.
+    Column(&'static str),
 }
 
 /// A log column an estimator cannot do without.
@@ -90,6 +94,14 @@ impl Estimator {
             }
             return Ok(Estimator::Gae(lambda));
         }
+        if let Some(header) = text.strip_prefix("column:") {
+            if header.is_empty() {
+                return Err(format!("'{text}': give the header of the logged column"));
+            }
+            return Ok(Estimator::Column(Box::leak(
+                header.to_string().into_boxed_str(),
+            )));
+        }
         if let Some(arg) = text.strip_prefix("nstep:") {
             let n: usize = arg
                 .parse()
@@ -102,7 +114,7 @@ impl Estimator {
         Err(format!(
             "unknown estimator '{text}'; known: total, rtg, rtg_discounted, mean_baseline, \
              whitened, value_baseline, q, advantage_q, td, nstep:N, gae:LAMBDA, minvar_total, \
-             minvar_rtg"
+             minvar_rtg, column:HEADER"
         ))
     }
 
@@ -150,7 +162,8 @@ impl Estimator {
             | Estimator::MeanBaseline
             | Estimator::Whitened
             | Estimator::MinvarTotal
-            | Estimator::MinvarRtg => &[],
+            | Estimator::MinvarRtg
+            | Estimator::Column(_) => &[],
             Estimator::Q => &[Need::Q],
             Estimator::AdvantageQ => &[Need::Q, Need::Value],
             Estimator::ValueBaseline | Estimator::Td | Estimator::NStep(_) | Estimator::Gae(_) => {
@@ -204,6 +217,15 @@ impl Estimator {
                 debug_assert_eq!(deltas.len(), t_len, "TD residuals computed by the caller");
                 scan::gae(deltas, gamma, lambda, out);
             }
+            Estimator::Column(header) => {
+                let k = ep
+                    .logged_names
+                    .iter()
+                    .position(|n| n == header)
+                    .expect("the reader carries every column estimator's column");
+                let w = ep.logged_names.len();
+                out.extend((0..t_len).map(|t| ep.logged[t * w + k]));
+            }
             Estimator::MeanBaseline
             | Estimator::Whitened
             | Estimator::MinvarTotal
@@ -231,6 +253,7 @@ impl fmt::Display for Estimator {
             Estimator::Gae(l) => write!(f, "gae:{l}"),
             Estimator::MinvarTotal => f.write_str("minvar_total"),
             Estimator::MinvarRtg => f.write_str("minvar_rtg"),
+            Estimator::Column(h) => write!(f, "column:{h}"),
         }
     }
 }
@@ -250,6 +273,10 @@ mod tests {
         assert_eq!(Estimator::Gae(0.95).to_string(), "gae:0.95");
         assert_eq!(Estimator::Gae(1.0).to_string(), "gae:1");
         assert_eq!(Estimator::NStep(5).to_string(), "nstep:5");
+        let c = Estimator::parse("column:adv").unwrap();
+        assert_eq!(c, Estimator::Column("adv"));
+        assert_eq!(c.to_string(), "column:adv");
+        assert!(Estimator::parse("column:").is_err());
     }
 
     #[test]

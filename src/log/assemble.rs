@@ -140,7 +140,8 @@ impl Assembler {
             Some(_) => {}
             None => self.start(key, row.line, loc)?,
         }
-        let w = self.shape.layout.score_dim + self.shape.layout.obs_dim + self.shape.layout.act_dim;
+        let l = &self.shape.layout;
+        let w = l.score_dim + l.obs_dim + l.act_dim + l.logged.len();
         // Each step holds its vector fields, up to four scalars and its line number.
         let step_bytes = 8 * (w as u64 + 5);
         let open_count = self.open.len();
@@ -362,12 +363,13 @@ fn over_budget(budget: Budget, open: usize, ep: &Episode, row: &Row, loc: &dyn L
     )
 }
 
-/// Appends a row's values (`v`: its scores, obs and act) to its episode.
+/// Appends a row's values (`v`: its scores, obs, act and logged columns) to its episode.
 fn push_step(ep: &mut Episode, row: &Row, v: &[f64]) {
-    let (d, o) = (ep.score_dim, ep.obs_dim);
+    let (d, o, a) = (ep.score_dim, ep.obs_dim, ep.act_dim);
     ep.scores.extend_from_slice(&v[..d]);
     ep.obs.extend_from_slice(&v[d..d + o]);
-    ep.act.extend_from_slice(&v[d + o..]);
+    ep.act.extend_from_slice(&v[d + o..d + o + a]);
+    ep.logged.extend_from_slice(&v[d + o + a..]);
     ep.rewards.push(row.reward);
     for (x, xs) in [
         (row.value, ep.values.as_mut()),

@@ -75,7 +75,7 @@ impl Locate for Locator {
 }
 
 /// Where each role's values are: batch column indices (the projected order) and, for the
-/// vector roles, one source per element in score, obs, act order.
+/// vector roles, one source per element in score, obs, act order, then the logged columns.
 struct Plan {
     id: usize,
     reward: usize,
@@ -243,6 +243,9 @@ impl Plan {
             for &c in cols.iter() {
                 vectors.push((check(c, num(types[c]), "numbers")?, None));
             }
+        }
+        for &c in &s.logged {
+            vectors.push((check(c, num(types[c]), "numbers")?, None));
         }
         Ok(Plan {
             id: check(id, id_ok, "integers or strings (an id)")?,

@@ -114,6 +114,9 @@ pub struct ColumnSpec {
     /// Roles the user named explicitly; a missing explicit header is an error even if optional.
     explicit: [bool; ROLES],
     pub score_prefix: String,
+    /// Headers of per-step columns carried into each episode as they are (`Episode::logged`):
+    /// a training stack's own advantages or value targets, to check or to audit.
+    pub logged: Vec<String>,
     pub obs_prefix: String,
     pub act_prefix: String,
     /// List columns named for the vector roles (`--col obs=robot.state`), by [`VectorRole`].
@@ -129,6 +132,7 @@ impl Default for ColumnSpec {
             headers: Role::ALL.map(|r| r.key().to_string()),
             explicit: [false; ROLES],
             score_prefix: "score_".into(),
+            logged: Vec::new(),
             obs_prefix: "obs_".into(),
             act_prefix: "act_".into(),
             lists: [None, None, None],
@@ -196,6 +200,8 @@ pub struct Schema {
     roles: [Option<usize>; ROLES],
     found: [Found; ROLES],
     pub scores: Vec<usize>,
+    /// Columns of `ColumnSpec::logged`, in that order.
+    pub logged: Vec<usize>,
     pub obs: Vec<usize>,
     pub act: Vec<usize>,
     /// The environment column (`--env-col`), which then stands in for the episode id.
@@ -275,7 +281,9 @@ impl Schema {
             )?),
             None => None,
         };
+        let logged = resolve_logged(spec, &headers, file)?;
         let mut schema = Schema {
+            logged,
             real: headers.len(),
             headers,
             roles,
@@ -655,6 +663,31 @@ fn find_required(
         format!("required column '{wanted}' (role {what}) is missing from the header"),
         hint,
     ))
+}
+
+/// The columns of the logged headers the user asked for: each must exist (with a suggestion
+/// when it does not).
+fn resolve_logged(spec: &ColumnSpec, headers: &[String], file: &str) -> Result<Vec<usize>> {
+    spec.logged
+        .iter()
+        .map(|wanted| {
+            headers.iter().position(|h| h == wanted).ok_or_else(|| {
+                let hint = match closest(wanted, headers) {
+                    Some(near) => format!("did you mean '{near}'?"),
+                    None => format!("the header row has: {}", headers.join(", ")),
+                };
+                Error::input_hint(
+                    Position {
+                        file: file.to_string(),
+                        line: Some(1),
+                        column: None,
+                    },
+                    format!("logged column '{wanted}' is missing from the header"),
+                    hint,
+                )
+            })
+        })
+        .collect()
 }
 
 /// Orders prefixed columns by their numeric suffix (`score_10` after `score_9`); if any suffix

@@ -244,6 +244,7 @@ impl LogReader {
                 score_dim: schema.scores.len(),
                 obs_dim: schema.obs.len(),
                 act_dim: schema.act.len(),
+                logged: options.columns.logged.clone().into(),
             },
             has_end_flags: schema.has_end_flags(),
             vector_env: schema.env.is_some(),

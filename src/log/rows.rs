@@ -245,6 +245,7 @@ impl RowParser {
         let mut vectors = schema.scores.clone();
         vectors.extend(&schema.obs);
         vectors.extend(&schema.act);
+        vectors.extend(&schema.logged);
         RowParser {
             file: file.to_string(),
             headers: schema.headers.clone(),
@@ -263,7 +264,7 @@ impl RowParser {
         }
     }
 
-    /// Fields per row of the vector block (scores + obs + act).
+    /// Fields per row of the vector block (scores + obs + act + logged columns).
     pub fn vector_width(&self) -> usize {
         self.vectors.len()
     }

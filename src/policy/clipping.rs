@@ -173,6 +173,8 @@ mod tests {
             key: b"e".to_vec(),
             first_line: 2,
             lines: Vec::new(),
+            logged: Vec::new(),
+            logged_names: Vec::new().into(),
             rewards: vec![0.0; acts.len()],
             values: None,
             q: None,

@@ -15,7 +15,7 @@ fn measured(o: &Outcome) -> String {
     }
 }
 
-fn regression_line(r: &RegressionOutcome) -> String {
+pub fn regression_line(r: &RegressionOutcome) -> String {
     // A change from a baseline near 0 can overflow to an infinite percentage: never printed.
     let change = match r.worse_pct.filter(|w| w.is_finite()) {
         Some(w) if w >= 0.0 => format!("{w:.1}% worse"),
@@ -33,12 +33,18 @@ fn regression_line(r: &RegressionOutcome) -> String {
     )
 }
 
-fn verdict(g: &GateReport) -> String {
+/// The result words: a check "holds" or "breaks" (the gate's own words, saying what was checked).
+pub fn result_word(ok: bool) -> &'static str {
+    if ok { "holds" } else { "breaks" }
+}
+
+/// The one-line result: whether every check holds, or how many break.
+pub fn verdict(g: &GateReport) -> String {
     if g.passed {
-        format!("gate passed: all {} checks hold", g.checks())
+        format!("gate holds: all {} checks hold", g.checks())
     } else {
         format!(
-            "gate FAILED: {} of {} checks failed",
+            "gate breaks: {} of {} checks break",
             g.failures(),
             g.checks()
         )
@@ -52,9 +58,9 @@ pub fn render_text(g: &GateReport) -> String {
         out.push_str(&format!("warning: {line}\n"));
     }
     for o in &g.outcomes {
-        let mark = if o.passed { "pass" } else { "FAIL" };
+        let mark = result_word(o.passed);
         out.push_str(&format!(
-            "{mark}  {} {}: {}\n",
+            "{mark:<6}  {} {}: {}\n",
             o.estimator,
             o.rule,
             measured(o)
@@ -67,8 +73,8 @@ pub fn render_text(g: &GateReport) -> String {
         }
     }
     for r in &g.regressions {
-        let mark = if r.passed { "pass" } else { "FAIL" };
-        out.push_str(&format!("{mark}  {}\n", regression_line(r)));
+        let mark = result_word(r.passed);
+        out.push_str(&format!("{mark:<6}  {}\n", regression_line(r)));
     }
     out.push_str(&verdict(g));
     out.push('\n');
@@ -76,7 +82,7 @@ pub fn render_text(g: &GateReport) -> String {
 }
 
 pub fn render_markdown(g: &GateReport) -> String {
-    let icon = |ok: bool| if ok { "pass" } else { "**FAIL**" };
+    let icon = |ok: bool| if ok { "holds" } else { "**breaks**" };
     let mut out = format!("### gradaudit gate: {}\n\n", verdict(g));
     for line in &super::table::preamble(&g.audit)[1..] {
         out.push_str(&format!("- {}\n", line.trim()));

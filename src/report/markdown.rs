@@ -21,20 +21,30 @@ pub fn render(r: &AuditReport) -> String {
         }
         out.push('\n');
     }
-    let titles: Vec<&str> = COLUMNS.iter().map(|c| c.title).collect();
+    // A pipe in a header or cell (`|g|`) would end the cell: escaped as `\|` (GFM tables).
+    let escape = |t: &str| t.replace('|', "\\|");
+    let titles: Vec<String> = COLUMNS.iter().map(|c| escape(c.title)).collect();
     out.push_str(&format!("| {} |\n", titles.join(" | ")));
-    out.push_str(&format!("|{}\n", "---|".repeat(titles.len())));
-    for row in &r.estimators {
+    // Names left, figures right-aligned.
+    out.push_str(&format!("|---|{}\n", "--:|".repeat(titles.len() - 1)));
+    let groups = super::groups::groups(r);
+    for g in &groups {
         let cells: Vec<String> = COLUMNS
             .iter()
-            .map(|c| cell_text((c.cell)(row)).replace('|', "\\|"))
+            .map(|c| {
+                if c.key == "estimator" {
+                    escape(&g.label())
+                } else {
+                    escape(&cell_text((c.cell)(g.first())))
+                }
+            })
             .collect();
         out.push_str(&format!("| {} |\n", cells.join(" | ")));
     }
     out.push('\n');
-    for row in &r.estimators {
-        for note in &row.notes {
-            out.push_str(&format!("- note ({}): {note}\n", row.name));
+    for g in &groups {
+        for note in &g.first().notes {
+            out.push_str(&format!("- note ({}): {note}\n", g.names()));
         }
     }
     for line in super::significance::lines(r) {

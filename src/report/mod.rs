@@ -8,9 +8,13 @@
 //! mse, ess), then the signal (for snr, episodes_for_snr). Otherwise they are None with a note.
 
 pub mod columns;
+pub mod crosscheck;
 pub mod csv;
 pub mod gate;
+pub mod groups;
+pub mod html;
 pub mod inspect;
+pub mod layout;
 pub mod markdown;
 pub mod significance;
 pub mod svg;
@@ -28,6 +32,10 @@ pub enum Format {
     Json,
     Csv,
     Markdown,
+    /// The terminal table with every column in one table (`--wide`).
+    WideTable,
+    /// One self-contained HTML page (report/html.rs).
+    Html,
 }
 
 /// Identifies the program and the wire schema.
@@ -105,6 +113,8 @@ pub struct Settings {
     pub target_snr: f64,
     pub reference: String,
     pub splits: usize,
+    /// `multinomial` or `poisson` (the bootstrap scheme, `--resampling`).
+    pub resampling: String,
 }
 
 /// An estimator that was not audited, and why.
@@ -404,6 +414,8 @@ pub fn render(report: &AuditReport, format: Format) -> String {
         }
         Format::Csv => csv::render(report),
         Format::Markdown => markdown::render(report),
+        Format::WideTable => table::render_with(report, true),
+        Format::Html => html::audit(report),
     }
 }
 

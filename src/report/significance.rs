@@ -60,15 +60,18 @@ pub fn lines(r: &AuditReport) -> Vec<String> {
          estimators; {} detected",
         s.controls, s.level, s.tested, s.detected
     ));
-    let unsure: Vec<String> = r
-        .estimators
+    // One entry per group of identical estimators, as the table shows them.
+    let unsure: Vec<String> = super::groups::groups(r)
         .iter()
-        .filter(|e| e.bias_sq.is_some_and(|b| b > 0.0) && !e.bias_detected)
-        .map(|e| {
+        .filter(|g| {
+            let e = g.first();
+            e.bias_sq.is_some_and(|b| b > 0.0) && !e.bias_detected
+        })
+        .map(|g| {
             format!(
                 "{} {}",
-                e.name,
-                e.bias_p_adjusted.map_or("-".into(), p_text)
+                g.names(),
+                g.first().bias_p_adjusted.map_or("-".into(), p_text)
             )
         })
         .collect();
@@ -90,7 +93,8 @@ pub fn lines(r: &AuditReport) -> Vec<String> {
     out
 }
 
-fn p_text(p: f64) -> String {
+/// A p-value in two decimals, or in scientific notation below 0.01.
+pub fn p_text(p: f64) -> String {
     if p >= 0.01 {
         format!("{p:.2}")
     } else {

@@ -40,7 +40,7 @@ where
 /// most 1.6e308 and at most 300 decades wide (the smallest values go on the floor, as zeros
 /// do). plotters' tick search counts the decades of hi / lo: an infinite ratio (an infinite end,
 /// or more than 308 decades) made it loop for about 1e18 steps.
-fn log_range(values: &[f64]) -> (f64, f64) {
+pub(crate) fn log_range(values: &[f64]) -> (f64, f64) {
     if values.is_empty() {
         return (1e-3, 1.0);
     }
@@ -59,7 +59,7 @@ fn log_range(values: &[f64]) -> (f64, f64) {
 
 /// A power of ten that brings `top` (finite, >= 0) into [1, 10), and its axis-title text, so a
 /// linear axis never spans astronomically large or small numbers; 1 for tops in [1e-3, 1e5).
-fn axis_unit(top: f64) -> (f64, String) {
+pub(crate) fn axis_unit(top: f64) -> (f64, String) {
     if top <= 0.0 || (1e-3..1e5).contains(&top) {
         return (1.0, String::new());
     }

@@ -1,9 +1,9 @@
 //! Rendering of a sweep: a terminal table with a compact log-scale chart of the three curves,
 //! CSV, Markdown and JSON.
 
+use super::layout::{Align, Grid, WIDTH, wrap};
 use super::table::num;
 use crate::sweep::{SweepPoint, SweepReport};
-use comfy_table::{Table, presets};
 
 const HEADERS: [&str; 11] = [
     "point",
@@ -77,18 +77,45 @@ fn preamble(r: &SweepReport) -> Vec<String> {
 }
 
 pub fn render_table(r: &SweepReport) -> String {
-    let mut out = preamble(r).join("\n");
-    out.push('\n');
+    render_table_with(r, false)
+}
+
+/// The terminal report; by default within 100 columns (the estimator column, which the point
+/// and the family in the preamble already say, is shown with `wide`).
+pub fn render_table_with(r: &SweepReport, wide: bool) -> String {
+    let mut out: String = preamble(r).iter().map(|l| wrap(l, WIDTH, "    ")).collect();
     for line in r.warnings.lines() {
-        out.push_str(&format!("warning: {line}\n"));
+        out.push_str(&wrap(&format!("warning: {line}"), WIDTH, "  "));
     }
-    let mut t = Table::new();
-    t.load_style(presets::UTF8_BORDERS_ONLY);
-    t.set_header(HEADERS);
-    for (i, p) in r.points.iter().enumerate() {
-        t.add_row(cells(r, i, p));
+    let shown: Vec<usize> = (0..HEADERS.len()).filter(|&j| wide || j != 1).collect();
+    let mut headers: Vec<String> = shown.iter().map(|&j| HEADERS[j].to_string()).collect();
+    if let Some(last) = headers.last_mut() {
+        *last = "mark".into();
     }
-    out.push_str(&t.to_string());
+    let grid = Grid {
+        headers,
+        aligns: shown
+            .iter()
+            .map(|&j| {
+                if j < 2 || j == HEADERS.len() - 1 {
+                    Align::Left
+                } else {
+                    Align::Number
+                }
+            })
+            .collect(),
+        rows: r
+            .points
+            .iter()
+            .enumerate()
+            .map(|(i, p)| {
+                let c = cells(r, i, p);
+                shown.iter().map(|&j| c[j].clone()).collect()
+            })
+            .collect(),
+    };
+    out.push('\n');
+    out.push_str(&grid.render());
     out.push('\n');
     out.push_str(&chart(r));
     if r.points
@@ -97,7 +124,7 @@ pub fn render_table(r: &SweepReport) -> String {
     {
         out.push_str("?: bias^2 within resampling noise (z < 2): it may be zero\n");
     }
-    out.push_str(&format!("choice: {}\n", r.choice.text));
+    out.push_str(&wrap(&format!("choice: {}", r.choice.text), WIDTH, "  "));
     out
 }
 
@@ -143,19 +170,20 @@ pub fn chart(r: &SweepReport) -> String {
         let f = (hi - x.log10()) / span;
         ((f * (ROWS - 1) as f64).round() as usize).min(ROWS - 1)
     };
-    let width = 3;
+    // Three characters per point, fewer on long grids, so the chart stays within 100 columns.
+    let width = (87 / series.len().max(1)).clamp(1, 3);
     let mut grid = vec![vec![' '; series.len() * width]; ROWS + 1];
     for (i, s) in series.iter().enumerate() {
         for (j, mark) in [(0, 'b'), (1, 'v'), (2, 'm')] {
             if let Some(x) = s[j] {
-                grid[row_of(x)][i * width + 1] = mark;
+                grid[row_of(x)][i * width + width / 2] = mark;
             }
         }
     }
     if let Some(rec) = r.choice.recommended
         && let Some(m) = series[rec][2]
     {
-        grid[row_of(m)][rec * width + 1] = '*';
+        grid[row_of(m)][rec * width + width / 2] = '*';
     }
     let mut out = String::new();
     for (i, row) in grid.iter().enumerate() {
@@ -184,9 +212,10 @@ pub fn chart(r: &SweepReport) -> String {
         .saturating_sub(first.len() + last.len())
         .max(1);
     out.push_str(&format!(
-        "{}  {first}{}{last}   ({}; log scale; b bias^2, v variance, m mse, * recommended)\n",
+        "{}  {first}{}{last}\n{}  ({}; log scale; b bias^2, v variance, m mse, * recommended)\n",
         " ".repeat(9),
         " ".repeat(gap),
+        " ".repeat(9),
         r.settings.over.key()
     ));
     out

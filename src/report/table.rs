@@ -1,8 +1,9 @@
 //! Terminal table of an audit: header lines, warnings, one row per estimator, the verdict.
 
 use super::AuditReport;
-use super::columns::{COLUMNS, Cell};
-use comfy_table::{Table, presets};
+use super::columns::{COLUMNS, Cell, Column};
+use super::groups::{Group, groups};
+use super::layout::{Align, Grid, WIDTH, wrap};
 
 /// A number for people: 4 significant digits, scientific outside [1e-3, 1e5).
 pub fn num(x: f64) -> String {
@@ -42,9 +43,14 @@ pub fn preamble(r: &AuditReport) -> Vec<String> {
             i.episodes, i.steps, i.terminated, i.truncated, i.score_dim, i.scores_from
         ),
         format!(
-            "  gamma {}, {} resamples, seed {}, reference {}, {}% intervals, target snr {}",
+            "  gamma {}, {} resamples{}, seed {}, reference {}, {}% intervals, target snr {}",
             s.gamma,
             s.resamples,
+            if s.resampling == "poisson" {
+                " (Poisson weights)"
+            } else {
+                ""
+            },
             s.seed,
             s.reference,
             s.confidence * 100.0,
@@ -54,48 +60,130 @@ pub fn preamble(r: &AuditReport) -> Vec<String> {
 }
 
 pub fn render(r: &AuditReport) -> String {
-    let mut out = preamble(r).join("\n");
-    out.push('\n');
+    render_with(r, false)
+}
+
+/// Interval ends not in the main column list, shown in the interval block and the wide table.
+const INTERVALS: &[Column] = &[
+    Column {
+        title: "|g-g_ref| low",
+        key: "bias_norm_low",
+        cell: |r| Cell::Num(r.bias_norm_interval.map(|i| i.low)),
+    },
+    Column {
+        title: "|g-g_ref| high",
+        key: "bias_norm_high",
+        cell: |r| Cell::Num(r.bias_norm_interval.map(|i| i.high)),
+    },
+    Column {
+        title: "cos_half low",
+        key: "cosine_half_low",
+        cell: |r| Cell::Num(r.cosine_half_interval.map(|i| i.low)),
+    },
+    Column {
+        title: "cos_half high",
+        key: "cosine_half_high",
+        cell: |r| Cell::Num(r.cosine_half_interval.map(|i| i.high)),
+    },
+];
+
+/// Whether a column holds an interval end (it goes to the interval block by default).
+fn is_interval(c: &Column) -> bool {
+    c.key.ends_with("_low") || c.key.ends_with("_high")
+}
+
+/// One table of the given columns, a row per group of identical estimators.
+fn grid(groups: &[Group], columns: &[&Column]) -> String {
+    let headers = columns.iter().map(|c| c.title.to_string()).collect();
+    let aligns = columns
+        .iter()
+        .map(|c| {
+            if c.key == "estimator" {
+                Align::Left
+            } else {
+                Align::Number
+            }
+        })
+        .collect();
+    let rows = groups
+        .iter()
+        .map(|g| {
+            columns
+                .iter()
+                .map(|c| {
+                    if c.key == "estimator" {
+                        g.label()
+                    } else {
+                        cell_text((c.cell)(g.first()))
+                    }
+                })
+                .collect()
+        })
+        .collect();
+    Grid {
+        headers,
+        aligns,
+        rows,
+    }
+    .render()
+}
+
+/// The terminal report. By default the table fits 100 columns: the figures first, the interval
+/// ends in a second block below; `wide` puts every column in one table.
+pub fn render_with(r: &AuditReport, wide: bool) -> String {
+    let mut out: String = preamble(r).iter().map(|l| wrap(l, WIDTH, "    ")).collect();
     if let Some(sk) = &r.input.sketch {
-        out.push_str(&format!("note: {}\n", sk.note));
+        out.push_str(&wrap(&format!("note: {}", sk.note), WIDTH, "  "));
     }
     if let Some(line) = critic_line(&r.input.critic) {
-        out.push_str(&format!("{line}\n"));
+        out.push_str(&wrap(&line, WIDTH, "  "));
     }
     if !r.warnings.is_empty() {
         out.push_str("warnings:\n");
         for line in r.warnings.lines() {
-            out.push_str(&format!("  - {line}\n"));
+            out.push_str(&wrap(&format!("  - {line}"), WIDTH, "    "));
         }
     }
-    let mut table = Table::new();
-    table.load_style(presets::UTF8_BORDERS_ONLY);
-    table.set_header(COLUMNS.iter().map(|c| c.title));
-    for row in &r.estimators {
-        table.add_row(COLUMNS.iter().map(|c| cell_text((c.cell)(row))));
-    }
-    out.push_str(&table.to_string());
+    let groups = groups(r);
+    let all: Vec<&Column> = COLUMNS.iter().chain(INTERVALS).collect();
     out.push('\n');
-    for row in r.estimators.iter().filter(|row| !row.notes.is_empty()) {
-        for note in &row.notes {
-            out.push_str(&format!("note ({}): {note}\n", row.name));
+    if wide {
+        out.push_str(&grid(&groups, &all));
+    } else {
+        let main: Vec<&Column> = COLUMNS.iter().filter(|c| !is_interval(c)).collect();
+        out.push_str(&grid(&groups, &main));
+        let ends: Vec<&Column> = std::iter::once(&COLUMNS[0])
+            .chain(all.iter().copied().filter(|c| is_interval(c)))
+            .collect();
+        out.push_str(&format!(
+            "\n{}% intervals (bootstrap percentiles; --wide puts them in the table above):\n",
+            r.settings.confidence * 100.0
+        ));
+        out.push_str(&grid(&groups, &ends));
+    }
+    out.push('\n');
+    for g in groups.iter().filter(|g| !g.first().notes.is_empty()) {
+        for note in &g.first().notes {
+            out.push_str(&wrap(&format!("note ({}): {note}", g.names()), WIDTH, "  "));
         }
     }
-    if let Some(line) = bias_legend(r) {
-        out.push_str(&line);
-        out.push('\n');
+    for line in super::significance::lines(r) {
+        out.push_str(&wrap(&line, WIDTH, "  "));
     }
+    // Estimators skipped for the same reason on one line (a log without a critic skips ten).
+    let mut reasons: Vec<(&str, Vec<&str>)> = Vec::new();
     for s in &r.skipped {
-        out.push_str(&format!("skipped {}: {}\n", s.name, s.reason));
+        match reasons.iter_mut().find(|(why, _)| *why == s.reason) {
+            Some((_, names)) => names.push(&s.name),
+            None => reasons.push((&s.reason, vec![&s.name])),
+        }
     }
-    out.push_str(&format!("verdict: {}\n", r.verdict.text));
+    for (why, names) in reasons {
+        let line = format!("skipped {}: {why}", names.join(", "));
+        out.push_str(&wrap(&line, WIDTH, "  "));
+    }
+    out.push_str(&wrap(&format!("verdict: {}", r.verdict.text), WIDTH, "  "));
     out
-}
-
-/// How the bias was tested and the '?' marker's legend, then the noise scale and baseline
-/// lines (report/significance.rs), one per line.
-pub fn bias_legend(r: &AuditReport) -> Option<String> {
-    Some(super::significance::lines(r).join("\n"))
 }
 
 /// One line on the critics' quality, when there is a critic.

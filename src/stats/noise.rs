@@ -73,6 +73,13 @@ pub fn interval(
     })
 }
 
+/// The bias-corrected (BC) interval of B_simple from replicates of 1 / B_simple alone: BCa
+/// with zero acceleration (a constant jackknife gives a = 0, Efron and Tibshirani 1993,
+/// sec. 14.3), for resamplers that keep no per-episode rows.
+pub fn interval_bc(reciprocals: Vec<f64>, estimate: f64, confidence: f64) -> Option<ScaleInterval> {
+    interval(reciprocals, estimate, &[0.0, 0.0], confidence)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

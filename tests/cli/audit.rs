@@ -90,7 +90,7 @@ fn table_csv_and_markdown() {
     assert_eq!(code, 0);
     assert!(out.contains("rtg (ref)"));
     assert!(out.contains("verdict: lowest MSE: "));
-    assert!(out.contains("skipped q: needs the q column"));
+    assert!(out.contains("skipped q, advantage_q: needs the q column"));
     let (_, csv, _) = run(&["audit", &rover, "--resamples", "200", "--format", "csv"]);
     let mut rdr = csv::Reader::from_reader(csv.as_bytes());
     let headers = rdr.headers().unwrap().clone();

@@ -22,12 +22,12 @@ fn passing_rules_exit_0_and_failing_rules_exit_1() {
         "rtg:cosine_half>=0.1",
     ]);
     assert_eq!(code, 0, "{out}{err}");
-    assert!(out.contains("gate passed: all 2 checks hold"), "{out}");
+    assert!(out.contains("gate holds: all 2 checks hold"), "{out}");
     let (code, out, _) = gate(&["--require", "gae:0.5:snr>=2", "--require", "rtg:snr>=1000"]);
     assert_eq!(code, 1);
-    assert!(out.contains("FAIL  rtg snr >= 1000"), "{out}");
+    assert!(out.contains("breaks  rtg snr >= 1000"), "{out}");
     assert!(out.contains("bound >= 1000, margin -"), "{out}");
-    assert!(out.contains("gate FAILED: 1 of 2 checks failed"), "{out}");
+    assert!(out.contains("gate breaks: 1 of 2 checks break"), "{out}");
 }
 
 #[test]
@@ -223,10 +223,13 @@ fn markdown_summary_for_pull_requests() {
     let (code, out, _) = gate(&["--require", "rtg:snr>=1000", "--format", "markdown"]);
     assert_eq!(code, 1);
     assert!(
-        out.starts_with("### gradaudit gate: gate FAILED: 1 of 1 checks failed"),
+        out.starts_with("### gradaudit gate: gate breaks: 1 of 1 checks break"),
         "{out}"
     );
-    assert!(out.contains("| **FAIL** | `rtg` | snr >= 1000 |"), "{out}");
+    assert!(
+        out.contains("| **breaks** | `rtg` | snr >= 1000 |"),
+        "{out}"
+    );
 }
 
 #[test]

@@ -157,7 +157,7 @@ fn gate_never_passes_on_undefined_figure() {
         expect(&args, code)
     };
     let out = gate("td:episodes_for_snr<=10", 1);
-    assert!(out.contains("FAIL  td episodes_for_snr <= 10"), "{out}");
+    assert!(out.contains("breaks  td episodes_for_snr <= 10"), "{out}");
     assert!(out.contains("undefined"), "{out}");
     gate("td:mse<=1e300@interval", 1);
     gate("td:variance<=1e300", 1);
@@ -371,8 +371,8 @@ fn regression_check_never_passes_on_undefined_figure() {
         expect(&args, if spec.starts_with("td") { 1 } else { 0 })
     };
     let out = gate("td:mse:10");
-    assert!(out.contains("FAIL  td mse"), "{out}");
+    assert!(out.contains("breaks  td mse"), "{out}");
     assert!(out.contains("undefined here and in the baseline"), "{out}");
     let out = gate("rtg:mse:10");
-    assert!(out.contains("pass  rtg mse"), "{out}");
+    assert!(out.contains("holds   rtg mse"), "{out}");
 }

@@ -379,6 +379,21 @@ fn parquet_and_arrow_give_the_audit_of_the_same_csv() {
     args.extend(COLS);
     args.extend(["--col", "score=policy.score"]);
     assert_eq!(audit(&args), want, "Arrow IPC");
+    // Arrow IPC stream format (no footer; batches read as they come).
+    let p = dir.path("log.arrows");
+    let mut w =
+        arrow_ipc::writer::StreamWriter::try_new(std::fs::File::create(&p).unwrap(), &b.schema())
+            .unwrap();
+    for start in (0..rows.len()).step_by(64) {
+        w.write(&b.slice(start, 64.min(rows.len() - start)))
+            .unwrap();
+    }
+    w.finish().unwrap();
+    let p = p.to_string_lossy().into_owned();
+    let mut args = vec![p.as_str()];
+    args.extend(COLS);
+    args.extend(["--col", "score=policy.score"]);
+    assert_eq!(audit(&args), want, "Arrow IPC stream");
 }
 
 fn refused(args: &[&str], wants: &[&str]) {

@@ -1,4 +1,5 @@
-//! Resampling whole episodes. Replicate b's weights come from an RNG keyed by (seed, stream, b)
+//! Resampling whole episodes: the multinomial bootstrap here, the streamed Poisson(1) bootstrap
+//! whose sums merge across shards in [`poisson`]. Replicate b's weights come from an RNG keyed by (seed, stream, b)
 //! alone, and replicates are computed in fixed-size blocks, each one matrix product of its
 //! weights with the contribution matrix. The block size never depends on the thread count, so
 //! results are bit-identical for any number of threads.
@@ -8,6 +9,8 @@ use rand::{RngExt, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use rayon::prelude::*;
 use std::ops::Range;
+
+pub mod poisson;
 
 /// Replicates per matrix product: large enough to amortise packing, small enough to keep the
 /// weight block (BLOCK x N) in cache-friendly size.
@@ -21,6 +24,10 @@ pub enum Stream {
     HalfSplit = 2,
     /// Random projections of a large policy's scores (policy/projection.rs).
     Projection = 3,
+    /// Poisson(1) weights keyed by episode id (poisson.rs).
+    PoissonBootstrap = 4,
+    /// Half splits keyed by episode id (poisson.rs).
+    PoissonHalves = 5,
 }
 
 /// The RNG of draw `index` in `stream` for a run seeded with `seed`.
