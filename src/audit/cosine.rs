@@ -5,8 +5,9 @@
 //! halves' gradients; over the data, each split's cosine has exactly the expectation wanted
 //! (disjoint halves of independent episodes are independent batches), and so has T. The spread
 //! of the S split cosines is not T's sampling error: the splits share the same episodes, so it
-//! leaves out how T moves from log to log (as a confidence interval it covered the truth in
-//! 88% of 400 simulated logs at 95%, src/audit/coverage.rs). Instead:
+//! leaves out how T moves from log to log (as a 95% confidence interval it covered the truth
+//! in 85.5% to 100% of 400 simulated logs, depending on the regime: src/audit/coverage.rs).
+//! Instead:
 //! - jackknife: with the splits held fixed, T_(i) is T with episode i left out of the half that
 //!   holds it (that half's gradient is recomputed from its summed contribution rows minus
 //!   episode i's, so batch-dependent baselines are re-estimated too), and
