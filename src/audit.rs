@@ -849,6 +849,8 @@ pub fn report(
 
 pub mod streamed;
 
+pub mod calibration;
+
 #[cfg(test)]
 mod tests;
 
