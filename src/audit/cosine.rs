@@ -106,22 +106,31 @@ fn leave_one_out(
         let row = row.slice(s![cols.clone()]);
         sums[h].iter_mut().zip(row).for_each(|(a, x)| *a += x);
     }
-    let grad = |sum: &[f64], count: f64| {
-        let mean: Vec<f64> = sum.iter().map(|x| x / count).collect();
-        let mut out = vec![0.0; plan.d];
+    // One mean buffer and one gradient buffer for all N leave-one-out gradients of the split.
+    let (mut mean, mut out) = (vec![0.0; cols.len()], vec![0.0; plan.d]);
+    let mut grad = |sum: &mut dyn Iterator<Item = f64>, count: f64| {
+        mean.iter_mut().zip(sum).for_each(|(m, x)| *m = x / count);
         plan.gradient_from_columns(k, &mean, &mut out);
-        out
+        out.clone()
     };
-    let whole = [grad(&sums[0], counts[0]), grad(&sums[1], counts[1])];
+    let whole = [
+        grad(&mut sums[0].iter().copied(), counts[0]),
+        grad(&mut sums[1].iter().copied(), counts[1]),
+    ];
+    let mut loo_grad = |i: usize, row: ndarray::ArrayView1<f64>| {
+        let h = side(i);
+        let row = row.slice(s![cols.clone()]);
+        let mut loo = sums[h].iter().zip(row).map(|(a, x)| a - x);
+        mean.iter_mut()
+            .zip(&mut loo)
+            .for_each(|(m, x)| *m = x / (counts[h] - 1.0));
+        plan.gradient_from_columns(k, &mean, &mut out);
+        cosine(&out, &whole[1 - h])
+    };
     let loo = contrib
         .outer_iter()
         .enumerate()
-        .map(|(i, row)| {
-            let h = side(i);
-            let row = row.slice(s![cols.clone()]);
-            let loo: Vec<f64> = sums[h].iter().zip(row).map(|(a, x)| a - x).collect();
-            cosine(&grad(&loo, counts[h] - 1.0), &whole[1 - h])
-        })
+        .map(|(i, row)| loo_grad(i, row))
         .collect();
     (cosine(&whole[0], &whole[1]), loo)
 }
