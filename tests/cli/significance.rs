@@ -1,7 +1,7 @@
 //! Issue 14: the bias test's p-values and table-wide decisions in the JSON report, and the
 //! gradient noise scale's identity with episodes_for_snr.
 
-use crate::util::{demo, run_json};
+use crate::util::{demo, run, run_json};
 
 // McCandlish et al. (2018, eq. 2.9): B_simple = tr(Sigma) / |G|^2 = N V / signal; at target
 // snr 1 an unbiased estimator's episodes_for_snr = N V / (signal - 0) is the same expression,
@@ -78,5 +78,43 @@ fn json_keeps_raw_and_adjusted_p_values() {
             tested += 1;
         }
         assert_eq!(sig["tested"], tested);
+    }
+}
+
+// Every human and machine format carries the decision procedure, the p-values and the noise
+// scale: the HTML page has a Significance section and adjusted p-values under the biases, the
+// CSV has the p-value columns and the procedure, the Markdown the same lines as the table.
+#[test]
+fn every_format_says_how_biases_were_decided() {
+    let rover = demo("docking_rover.csv");
+    let args = ["audit", rover.as_str(), "--resamples", "300", "--format"];
+    let fmt = |f: &str| {
+        let (code, out, err) = run(&[&args[..], &[f]].concat());
+        assert_eq!(code, 0, "{err}");
+        out
+    };
+    let html = fmt("html");
+    assert!(
+        html.contains("<section id=\"significance\">"),
+        "no Significance section"
+    );
+    assert!(html.contains("Holm family-wise error rate controlled at 0.05"));
+    assert!(html.contains("adj. p ") && html.contains("noise scale (reference rtg)"));
+    let csv = fmt("csv");
+    let header: Vec<&str> = csv.lines().next().unwrap().split(',').collect();
+    for col in ["bias_p", "bias_p_adjusted", "bias_control", "noise_scale"] {
+        assert!(header.contains(&col), "{col} in {header:?}");
+    }
+    let control = header.iter().position(|h| *h == "bias_control").unwrap();
+    for line in csv.lines().skip(1) {
+        assert_eq!(line.split(',').nth(control), Some("holm@0.05"), "{line}");
+    }
+    let md = fmt("markdown");
+    for line in [
+        "- bias test: bootstrap null",
+        "- noise scale (reference rtg)",
+        "- baseline: ",
+    ] {
+        assert!(md.contains(line), "{line}");
     }
 }
