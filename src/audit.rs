@@ -313,6 +313,7 @@ impl Ids {
 
 mod scoring;
 pub use scoring::{Scorer, Scores, scores};
+mod cosine;
 mod significance;
 
 /// The result of the single pass: one contribution row per episode, in canonical order.
@@ -686,7 +687,16 @@ pub fn statistics(
         bias_level: cfg.bias_level,
         multiplicity: cfg.multiplicity,
     };
-    stats::summarise_with(plan, reference, &point, &source, &scfg)
+    let (mut stats, signal) = stats::summarise_with(plan, reference, &point, &source, &scfg);
+    // cosine_half's interval from the episode jackknife, not the split cosines' spread.
+    for (k, st) in stats.iter_mut().enumerate() {
+        if let Some(c) = st.cosine_half {
+            let splits = (cfg.seed, cfg.splits);
+            let iv = cosine::interval(plan, contrib.view(), k, splits, c, cfg.confidence);
+            st.cosine_half_interval = iv;
+        }
+    }
+    (stats, signal)
 }
 
 /// What an audit fixes before reading episodes: where scores come from, the estimators and
@@ -882,3 +892,6 @@ mod tests;
 
 #[cfg(test)]
 mod props;
+
+#[cfg(test)]
+mod coverage;

@@ -9,7 +9,7 @@ use crate::error::{Error, Result};
 use crate::estimator::Estimator;
 use crate::log::{LogReader, Role};
 use crate::report::{EstimatorRow, InputSummary, ReferenceFigures, Tool};
-use crate::stats::{self, Interval, StatsConfig, percentile};
+use crate::stats::{self, Interval, StatsConfig};
 use crate::warnings::Warnings;
 use serde::Serialize;
 
@@ -322,8 +322,8 @@ pub fn run(reader: LogReader, cfg: &SweepConfig) -> Result<SweepReport> {
             let k = i + 1;
             // The report's row rules apply: figures derived from overflowed ones are undefined.
             let row = EstimatorRow::new(g.label.clone(), false, stats[k].clone(), &refs);
-            let (mse_se, mse_interval) = row.mse.map_or((None, None), |mse| {
-                mse_spread(&plan, k, &replicates, n, mse, cfg)
+            let (mse_se, mse_interval) = row.mse.map_or((None, None), |_| {
+                mse_spread(&plan, k, &replicates, data.contrib.view(), cfg)
             });
             SweepPoint {
                 label: g.label.clone(),
@@ -373,20 +373,29 @@ pub fn run(reader: LogReader, cfg: &SweepConfig) -> Result<SweepReport> {
     })
 }
 
-/// Bootstrap standard error and shifted percentile interval of point k's MSE estimate `mse`,
-/// from each replicate's own MSE estimate; None when fewer than two replicates, or when a
-/// replicate's estimate overflowed f64 (a spread of overflowed figures is undefined).
+/// Bootstrap standard error and BCa interval (Efron 1987; [`stats::intervals`]) of point k's
+/// MSE estimate, from each replicate's own MSE estimate and the leave-one-episode-out
+/// (jackknife) estimates; None when fewer than two replicates, or when a replicate's estimate
+/// overflowed f64 (a spread of overflowed figures is undefined).
+///
+/// Why BCa and not the percentile interval shifted by the replicates' excess mean (used
+/// before): the MSE estimate is a clamped, right-skewed quadratic form whose replicates also
+/// sit above it by about V_d; a shift fixes the mean but not the skew, and the shifted interval
+/// covered the true MSE at gamma = 1 in 76.5% of 400 simulated logs of 400 episodes at 95%
+/// (src/audit/coverage.rs, regime `moderate`); BCa's z0 corrects the median offset and
+/// the jackknife acceleration the skew: 83.3% there, 60.5% -> 70.0% at N = 100. Heavy-tailed
+/// per-episode gradients still leave it short of 95% (README, "Coverage of the intervals").
 fn mse_spread(
     plan: &Plan,
     k: usize,
     replicates: &ndarray::Array2<f64>,
-    n: usize,
-    mse: f64,
+    contrib: ndarray::ArrayView2<f64>,
     cfg: &SweepConfig,
 ) -> (Option<f64>, Option<Interval>) {
+    let n = contrib.nrows();
     // The MSE estimate inside each replicate, from its exact within-replicate variances
     // (see contrib.rs): bias_sq_b = max(0, ||d_b||^2 - V_d,b), mse_b = bias_sq_b + V_k,b.
-    let mut mses: Vec<f64> = replicates
+    let mses: Vec<f64> = replicates
         .outer_iter()
         .map(|row| {
             let row = row.as_slice().expect("rows are contiguous");
@@ -396,20 +405,32 @@ fn mse_spread(
     if mses.len() < 2 || mses.iter().any(|x| !x.is_finite()) {
         return (None, None);
     }
-    let alpha = 1.0 - cfg.audit.confidence;
     let m = mses.iter().sum::<f64>() / mses.len() as f64;
     let var = mses.iter().map(|x| (x - m).powi(2)).sum::<f64>() / (mses.len() - 1) as f64;
-    // The replicates' mean exceeds the estimate by about V_d (the paired squared norm's own
-    // noise), so the percentiles are shifted back by the difference.
-    let shift = m - mse;
-    mses.sort_by(f64::total_cmp);
-    let iv = Interval {
-        low: at_least_0(percentile(&mses, alpha / 2.0) - shift),
-        high: at_least_0(percentile(&mses, 1.0 - alpha / 2.0) - shift),
+    // The same functional at the whole log and with each episode left out (the batch size n
+    // stays fixed: it is a parameter of the figure, not of the data).
+    let total = contrib.sum_axis(ndarray::Axis(0)).to_vec();
+    let at = |sum: &[f64], count: f64| {
+        let mean: Vec<f64> = sum.iter().map(|x| x / count).collect();
+        replicate_mse(plan, k, 0, &mean, n)
     };
+    let estimate = at(&total, n as f64);
+    let jackknife: Vec<f64> = contrib
+        .outer_iter()
+        .map(|row| {
+            let loo: Vec<f64> = total.iter().zip(row).map(|(t, x)| t - x).collect();
+            at(&loo, n as f64 - 1.0)
+        })
+        .collect();
+    let iv = stats::intervals::bca(mses, estimate, &jackknife, cfg.audit.confidence).map(|iv| {
+        Interval {
+            low: at_least_0(iv.low),
+            high: at_least_0(iv.high),
+        }
+    });
     (
         crate::report::finite(var.sqrt()),
-        crate::report::finite_interval(iv),
+        iv.and_then(crate::report::finite_interval),
     )
 }
 

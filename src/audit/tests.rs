@@ -284,7 +284,7 @@ fn one_step_gaussian_matches_closed_form_moments() {
 ///   J(k) = -sum_{t<H} ((1 + k^2) m_t + sigma^2),
 ///   dm_{t+1}/dk = 2 (1 + k) m_t + (1 + k)^2 dm_t/dk,   dm_0/dk = 0,
 ///   dJ/dk = -sum_{t<H} (2 k m_t + (1 + k^2) dm_t/dk).
-fn lq_objective_and_gradient(k: f64, sigma: f64, h: usize) -> (f64, f64) {
+pub(super) fn lq_objective_and_gradient(k: f64, sigma: f64, h: usize) -> (f64, f64) {
     let (mut m, mut dm, mut j, mut dj) = (1.0, 0.0, 0.0, 0.0);
     for _ in 0..h {
         j -= (1.0 + k * k) * m + sigma * sigma;

@@ -170,7 +170,7 @@ pub fn render_with(r: &AuditReport, wide: bool) -> String {
             .chain(all.iter().copied().filter(|c| is_interval(c)))
             .collect();
         out.push_str(&format!(
-            "\n{}% intervals (bootstrap percentiles; --wide puts them in the table above):\n",
+            "\n{}% intervals (bootstrap; cos_half: episode jackknife; --wide puts them in the table above):\n",
             r.settings.confidence * 100.0
         ));
         out.push_str(&grid(&groups, &ends));
