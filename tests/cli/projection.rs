@@ -113,6 +113,11 @@ fn small_networks_are_exact_unless_projection_is_asked_for() {
         out.contains("measured from the spread over the 16 projections"),
         "{out}"
     );
+    // Below 64 projections the measured spread is flagged as uncertain (src/sketch.rs).
+    assert!(
+        out.contains("with only 16 projections that measured error is itself uncertain"),
+        "{out}"
+    );
 }
 
 #[test]
