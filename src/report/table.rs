@@ -169,8 +169,15 @@ pub fn render_with(r: &AuditReport, wide: bool) -> String {
         let ends: Vec<&Column> = std::iter::once(&COLUMNS[0])
             .chain(all.iter().copied().filter(|c| is_interval(c)))
             .collect();
+        // Streamed (Poisson) and merged audits keep no per-episode rows for the jackknife, so
+        // their cosine_half interval is the spread of the split cosines (src/audit/cosine.rs).
+        let cos = if r.settings.resampling == "poisson" {
+            "spread of the split cosines"
+        } else {
+            "episode jackknife"
+        };
         out.push_str(&format!(
-            "\n{}% intervals (bootstrap; cos_half: episode jackknife; --wide puts them in the table above):\n",
+            "\n{}% intervals (bootstrap; cos_half: {cos}; --wide puts them in the table above):\n",
             r.settings.confidence * 100.0
         ));
         out.push_str(&grid(&groups, &ends));

@@ -264,3 +264,29 @@ fn gate_words_say_what_was_checked() {
         assert!(!out.contains(word), "{word}: {out}");
     }
 }
+
+/// The interval block names cosine_half's method: the episode jackknife when the audit holds
+/// per-episode rows, the spread of the split cosines in a streamed (Poisson) audit, which has none.
+#[test]
+fn interval_header_names_the_cosine_method_of_each_resampling() {
+    let multinomial = output(&["audit", ROVER, "--resamples", "300"], 0);
+    assert!(
+        multinomial.contains("cos_half: episode jackknife;"),
+        "{multinomial}"
+    );
+    let poisson = output(
+        &[
+            "audit",
+            ROVER,
+            "--resamples",
+            "300",
+            "--resampling",
+            "poisson",
+        ],
+        0,
+    );
+    assert!(
+        poisson.contains("cos_half: spread of the split cosines;"),
+        "{poisson}"
+    );
+}
