@@ -355,37 +355,38 @@ fn parquet_and_arrow_give_the_audit_of_the_same_csv() {
         args.extend(["--col", "score=policy.score"]);
         assert_eq!(audit(&args), want, "fixed-size list: {fixed}");
     }
-    // Arrow IPC file format, in batches of 50 rows.
-    let p = dir.path("log.arrow");
+    // Arrow IPC file format, in batches of 50 rows; the stream format (no footer; batches read
+    // as they come), in batches of 64.
     let b = batch(&rows, true);
-    let mut w =
-        arrow_ipc::writer::FileWriter::try_new(std::fs::File::create(&p).unwrap(), &b.schema())
-            .unwrap();
-    for start in (0..rows.len()).step_by(50) {
-        w.write(&b.slice(start, 50.min(rows.len() - start)))
-            .unwrap();
+    for (name, stream, rows_per_batch, what) in [
+        ("log.arrow", false, 50, "Arrow IPC"),
+        ("log.arrows", true, 64, "Arrow IPC stream"),
+    ] {
+        let p = dir.path(name);
+        write_arrow(&p, &b, stream, rows_per_batch);
+        let p = p.to_string_lossy().into_owned();
+        let mut args = vec![p.as_str()];
+        args.extend(COLS);
+        args.extend(["--col", "score=policy.score"]);
+        assert_eq!(audit(&args), want, "{what}");
     }
-    w.finish().unwrap();
-    let p = p.to_string_lossy().into_owned();
-    let mut args = vec![p.as_str()];
-    args.extend(COLS);
-    args.extend(["--col", "score=policy.score"]);
-    assert_eq!(audit(&args), want, "Arrow IPC");
-    // Arrow IPC stream format (no footer; batches read as they come).
-    let p = dir.path("log.arrows");
-    let mut w =
-        arrow_ipc::writer::StreamWriter::try_new(std::fs::File::create(&p).unwrap(), &b.schema())
-            .unwrap();
-    for start in (0..rows.len()).step_by(64) {
-        w.write(&b.slice(start, 64.min(rows.len() - start)))
-            .unwrap();
+}
+
+/// Writes `b` as an Arrow IPC file (or stream) in slices of `rows_per_batch` rows.
+fn write_arrow(path: &std::path::Path, b: &RecordBatch, stream: bool, rows_per_batch: usize) {
+    let file = std::fs::File::create(path).unwrap();
+    let slices = (0..b.num_rows())
+        .step_by(rows_per_batch)
+        .map(|start| b.slice(start, rows_per_batch.min(b.num_rows() - start)));
+    if stream {
+        let mut w = arrow_ipc::writer::StreamWriter::try_new(file, &b.schema()).unwrap();
+        slices.for_each(|s| w.write(&s).unwrap());
+        w.finish().unwrap();
+    } else {
+        let mut w = arrow_ipc::writer::FileWriter::try_new(file, &b.schema()).unwrap();
+        slices.for_each(|s| w.write(&s).unwrap());
+        w.finish().unwrap();
     }
-    w.finish().unwrap();
-    let p = p.to_string_lossy().into_owned();
-    let mut args = vec![p.as_str()];
-    args.extend(COLS);
-    args.extend(["--col", "score=policy.score"]);
-    assert_eq!(audit(&args), want, "Arrow IPC stream");
 }
 
 fn refused(args: &[&str], wants: &[&str]) {
