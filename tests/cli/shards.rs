@@ -66,7 +66,8 @@ fn merge_json(shards: &[String]) -> Value {
     run_json(&args)
 }
 
-fn single_json() -> Value {
+/// The single-process Poisson audit of the whole rover demo, with `extra` options.
+fn single_json(extra: &[&str]) -> Value {
     let log = demo("docking_rover.csv");
     let mut args = vec![
         "audit",
@@ -77,6 +78,7 @@ fn single_json() -> Value {
         "json",
     ];
     args.extend(FAST);
+    args.extend(extra);
     run_json(&args)
 }
 
@@ -133,7 +135,7 @@ fn max_rel_diff(a: &Value, b: &Value, path: &str) -> f64 {
 // relative on every figure), for K = 1, 2 and 7 shards and three ways to assign episodes.
 #[test]
 fn merged_shards_equal_the_single_poisson_audit() {
-    let single = single_json();
+    let single = single_json(&[]);
     assert_eq!(single["settings"]["resampling"], "poisson");
     let assignments: [(&str, &dyn Fn(usize) -> usize); 3] = [
         ("alternating", &|i| i),
@@ -264,7 +266,7 @@ fn dask_recipe_gives_the_single_process_report() {
     );
     assert!(err.contains("3 shards on 2 workers"), "{err}");
     let merged: Value = serde_json::from_str(&std::fs::read_to_string(&out).unwrap()).unwrap();
-    let worst = max_rel_diff(&merged, &single_json(), "");
+    let worst = max_rel_diff(&merged, &single_json(&[]), "");
     assert!(worst <= 1e-12, "{worst}");
 }
 
@@ -324,18 +326,7 @@ fn shards_carry_the_minvar_baselines_p_values_and_noise_scale() {
         "--multiplicity",
         "bh",
     ];
-    let log = demo("docking_rover.csv");
-    let mut args = vec![
-        "audit",
-        log.as_str(),
-        "--resampling",
-        "poisson",
-        "--format",
-        "json",
-    ];
-    args.extend(FAST);
-    args.extend(extra);
-    let single = run_json(&args);
+    let single = single_json(&extra);
     let dir = Dir::new("shards-issue14");
     let parts = split(&dir, 2, |i| i);
     let merged = merge_json(&shards(&dir, &parts, &extra));
