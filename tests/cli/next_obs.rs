@@ -5,7 +5,6 @@
 use crate::util::{Dir, run, run_json};
 use arrow_array::types::Float64Type;
 use arrow_array::{ArrayRef, BooleanArray, Float64Array, Int64Array, ListArray, RecordBatch};
-use arrow_schema::{Field, Schema};
 use std::fmt::Write as _;
 use std::sync::Arc;
 
@@ -262,15 +261,7 @@ fn batch(rows: &[Step], obs_list: &str, next_list: &str, next_width: usize) -> R
         (obs_list, list(&|r| r.obs.to_vec())),
         (next_list, list(&|r| r.next[..next_width].to_vec())),
     ];
-    let fields: Vec<Field> = cols
-        .iter()
-        .map(|(n, a)| Field::new(*n, a.data_type().clone(), false))
-        .collect();
-    RecordBatch::try_new(
-        Arc::new(Schema::new(fields)),
-        cols.into_iter().map(|c| c.1).collect(),
-    )
-    .unwrap()
+    crate::util::named_batch(cols)
 }
 
 fn write_parquet(path: &std::path::Path, b: &RecordBatch) {

@@ -294,15 +294,7 @@ fn batch(rows: &[Step], fixed: bool) -> RecordBatch {
         ("next_value", f64s(&|r| r.next_value)),
         ("policy.score", scores),
     ];
-    let fields: Vec<Field> = cols
-        .iter()
-        .map(|(n, a)| Field::new(*n, a.data_type().clone(), false))
-        .collect();
-    RecordBatch::try_new(
-        Arc::new(Schema::new(fields)),
-        cols.into_iter().map(|c| c.1).collect(),
-    )
-    .unwrap()
+    crate::util::named_batch(cols)
 }
 
 /// The same columns as CSV (scores as score_0..2), with the dotted names.

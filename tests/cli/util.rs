@@ -107,3 +107,16 @@ pub fn assert_same_variances(a: &serde_json::Value, b: &serde_json::Value, rel: 
         );
     }
 }
+
+/// A record batch of non-nullable columns, each named, in the order given.
+pub fn named_batch(cols: Vec<(&str, arrow_array::ArrayRef)>) -> arrow_array::RecordBatch {
+    let fields: Vec<arrow_schema::Field> = cols
+        .iter()
+        .map(|(n, a)| arrow_schema::Field::new(*n, a.data_type().clone(), false))
+        .collect();
+    arrow_array::RecordBatch::try_new(
+        std::sync::Arc::new(arrow_schema::Schema::new(fields)),
+        cols.into_iter().map(|c| c.1).collect(),
+    )
+    .unwrap()
+}
