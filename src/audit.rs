@@ -823,8 +823,19 @@ fn mse_intervals(report: &mut AuditReport, data: &Collected, prep: &Prepared, cf
             .iter()
             .any(|r| &r.name == name && r.mse.is_some())
     };
+    let source = Resampler {
+        plan,
+        contrib: data.contrib.view(),
+        seed: cfg.seed,
+        resamples: cfg.resamples,
+        splits: cfg.splits,
+    };
+    let (gr, _) = stats::ReplicateGradients::bootstrap(&source, prep.reference);
     let draws: Vec<_> = (0..plan.estimators.len())
-        .map(|k| defined(k).then(|| significance::mse_draws(data, plan, k, prep.reference, cfg))?)
+        .map(|k| {
+            let pair = (k, prep.reference);
+            defined(k).then(|| significance::mse_draws(data, plan, pair, &gr, cfg))?
+        })
         .collect();
     let seed = cfg.seed;
     let spreads = stats::mse::spreads(&draws, cfg.confidence, |u| {
@@ -862,6 +873,10 @@ pub fn report(
             })
         })
         .collect();
+    let distinct = stats
+        .iter()
+        .filter(|s| s.bias_p_adjusted.is_some() && !s.repeats_a_test)
+        .count();
     let mut estimators: Vec<EstimatorRow> = plan
         .estimators
         .iter()
@@ -880,7 +895,7 @@ pub fn report(
         scale,
     );
     let (sig, gap) = (
-        significance::significance(&estimators, cfg),
+        significance::significance(&estimators, distinct, cfg),
         significance::baseline_gap(&estimators),
     );
     let signal_coords = signal.per_coord.as_deref();

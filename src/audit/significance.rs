@@ -11,13 +11,14 @@ use crate::resample;
 use crate::stats::{ReplicateGradients, noise};
 
 /// The bias test's summary over the rows.
-pub fn significance(rows: &[EstimatorRow], cfg: &AuditConfig) -> Significance {
+pub fn significance(rows: &[EstimatorRow], distinct: usize, cfg: &AuditConfig) -> Significance {
     Significance {
         null: "bootstrap_centred_paired",
         multiplicity: cfg.multiplicity,
         controls: cfg.multiplicity.describe(),
         level: cfg.bias_level,
         tested: rows.iter().filter(|r| r.bias_p_adjusted.is_some()).count(),
+        distinct_tests: distinct,
         detected: rows.iter().filter(|r| r.bias_detected).count(),
     }
 }
@@ -162,11 +163,14 @@ fn resampled_columns(
 /// Per-episode estimator k's MSE draws against the reference (stats/mse.rs), from the
 /// multinomial bootstrap's replicate gradients and moments and the episode jackknife; None for
 /// a batch-dependent estimator (no per-episode moments) or where a figure overflowed.
+///
+/// `gr` holds the reference's replicate gradients (`Resampler::bootstrap(reference)`), formed
+/// once for every estimator.
 pub fn mse_draws(
     data: &Collected,
     plan: &Plan,
-    k: usize,
-    reference: usize,
+    (k, reference): (usize, usize),
+    gr: &ndarray::Array2<f64>,
     cfg: &AuditConfig,
 ) -> Option<crate::stats::mse::Draws> {
     use crate::stats::mse::{Draws, Parts};
@@ -182,7 +186,6 @@ pub fn mse_draws(
         splits: cfg.splits,
     };
     let (gk, _) = source.bootstrap(k);
-    let (gr, _) = source.bootstrap(reference);
     let cols = [start + 2 * k, start + 2 * k + 1];
     let moments = resampled_columns(contrib, &cols, cfg);
     let reps = (0..cfg.resamples).map(|b| {

@@ -683,3 +683,34 @@ fn gate_mse_end_is_the_larger_of_its_two_bounds() {
         assert!((snr - s_lo / end).abs() <= 1e-12 * snr.abs(), "{}", r.name);
     }
 }
+
+// gae:0, nstep:1 and td are one estimator (the TD residual weights every step): one test in
+// Holm's m, not three. Holm over the two distinct tests by hand (Holm 1979): with raw p_a of
+// the td group (its smallest) and p_b of total, sorted p_(1) <= p_(2), the adjusted values are
+// min(1, 2 p_(1)) and max of that and p_(2).
+#[test]
+fn one_estimator_under_three_names_is_one_test() {
+    let lq = crate::testkit::Lq {
+        k: -0.1,
+        sigma: 0.5,
+        h: 6,
+    };
+    let text = lq.log(200, 0.5, 4);
+    let report = audit_text(&text, &cfg("rtg,td,gae:0,nstep:1,total", 0.99));
+    assert_eq!(report.significance.tested, 4);
+    assert_eq!(report.significance.distinct_tests, 2);
+    let p = |n: &str| row(&report, n).bias_p.expect("tested");
+    let adj = |n: &str| row(&report, n).bias_p_adjusted.expect("tested");
+    let group = p("td").min(p("gae:0")).min(p("nstep:1"));
+    let (lo, hi) = (group.min(p("total")), group.max(p("total")));
+    let first = (2.0 * lo).min(1.0);
+    let (want_group, want_total) = if group <= p("total") {
+        (first, first.max(hi))
+    } else {
+        (first.max(hi), first)
+    };
+    for n in ["td", "gae:0", "nstep:1"] {
+        assert_eq!(adj(n), want_group, "{n}");
+    }
+    assert_eq!(adj("total"), want_total);
+}

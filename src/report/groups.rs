@@ -174,6 +174,7 @@ mod tests {
                 controls: crate::stats::Multiplicity::Holm.describe(),
                 level: 0.05,
                 tested: rows_tested,
+                distinct_tests: rows_tested,
                 detected: rows_tested,
             },
             noise_scale: vec![],

@@ -22,6 +22,9 @@ pub struct Significance {
     pub level: f64,
     /// Estimators tested (every audited one but the reference, with a defined p-value).
     pub tested: usize,
+    /// Distinct tests among them, the m of the adjustment: one estimator under several names
+    /// (gae:0 = nstep:1 = td) is one test.
+    pub distinct_tests: usize,
     pub detected: usize,
 }
 
@@ -50,6 +53,15 @@ pub struct BaselineGap {
     pub ratio: f64,
 }
 
+/// ", N distinct tests" when some estimators are one under several names.
+pub fn distinct_text(s: &Significance) -> String {
+    if s.distinct_tests < s.tested {
+        format!(" ({} distinct tests)", s.distinct_tests)
+    } else {
+        String::new()
+    }
+}
+
 /// The lines under the table: the test and its control, the '?' legend, the noise scale and
 /// the baseline comparison.
 pub fn lines(r: &AuditReport) -> Vec<String> {
@@ -57,8 +69,12 @@ pub fn lines(r: &AuditReport) -> Vec<String> {
     let s = &r.significance;
     out.push(format!(
         "bias test: bootstrap null (centred paired resamples), {} controlled at {} over {} \
-         estimators; {} detected",
-        s.controls, s.level, s.tested, s.detected
+         estimators{}; {} detected",
+        s.controls,
+        s.level,
+        s.tested,
+        distinct_text(s),
+        s.detected
     ));
     // One entry per group of identical estimators, as the table shows them.
     let unsure: Vec<String> = super::groups::groups(r)
@@ -132,33 +148,53 @@ fn noise_line(ns: &NoiseScale) -> String {
     line
 }
 
-fn gap_line(g: &BaselineGap) -> String {
-    let hint = if g.optimal == "minvar_total" {
-        " (total-return form; --estimators ...,minvar_rtg adds the time-dependent one for \
-         reward-to-go)"
+/// A share as a percentage: whole percents, one decimal below 1% (so 0.4% is not "0%").
+fn percent(x: f64) -> String {
+    let p = 100.0 * x;
+    if p < 1.0 {
+        format!("{p:.1}%")
     } else {
-        ""
+        format!("{p:.0}%")
+    }
+}
+
+fn gap_line(g: &BaselineGap) -> String {
+    // value_baseline and mean_baseline are reward-to-go forms; minvar_total is the optimum of
+    // the total-return form only, so that comparison is across forms and says so.
+    let across = g.optimal == "minvar_total";
+    let optimal = if across {
+        format!("{}, the optimum of the total-return form", g.optimal)
+    } else {
+        format!("the minimum-variance {}", g.optimal)
     };
+    let figures = format!(
+        "({} vs {})",
+        num(g.baseline_variance),
+        num(g.optimal_variance)
+    );
     let line = if g.ratio > 1.0 {
         format!(
-            "baseline: {} leaves {:.0}% more variance than the minimum-variance {} ({} vs {})",
+            "baseline: {} (reward-to-go) leaves {} more variance {figures} than {optimal}",
             g.baseline,
-            100.0 * (g.ratio - 1.0),
-            g.optimal,
-            num(g.baseline_variance),
-            num(g.optimal_variance)
+            percent(g.ratio - 1.0),
         )
     } else {
         // A critic's state-dependent baseline can beat any baseline of time alone.
         format!(
-            "baseline: {} has {:.0}% less variance than the minimum-variance {} ({} vs {}): \
-             it uses more than the batch's time and score statistics (a critic's state values)",
+            "baseline: {} (reward-to-go) has {} less variance {figures} than {optimal}{}",
             g.baseline,
-            100.0 * (1.0 - g.ratio),
-            g.optimal,
-            num(g.baseline_variance),
-            num(g.optimal_variance)
+            percent(1.0 - g.ratio),
+            if across {
+                ""
+            } else {
+                ": it uses more than the batch's time and score statistics (a critic's state values)"
+            }
         )
+    };
+    let hint = if across {
+        "; for the same form's optimum add --estimators ...,minvar_rtg"
+    } else {
+        ""
     };
     format!("{line}{hint}")
 }

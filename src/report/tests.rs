@@ -32,6 +32,7 @@ fn stats() -> EstimatorStats {
         bias_z: Some(3.0),
         bias_p: Some(0.001),
         bias_p_adjusted: Some(0.004),
+        repeats_a_test: false,
         bias_detected: true,
         bias_norm_interval: UNIT,
         mse: 1.5,

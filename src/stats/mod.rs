@@ -107,6 +107,9 @@ pub struct EstimatorStats {
     pub bias_p: Option<f64>,
     /// `bias_p` adjusted across the table ([`multiplicity`]).
     pub bias_p_adjusted: Option<f64>,
+    /// Whether this estimator's bias test repeats an earlier one's (the same estimator under
+    /// another name) and so was not counted again in the adjustment.
+    pub repeats_a_test: bool,
     /// bias_p_adjusted <= the level: the bias is distinguishable from resampling noise.
     pub bias_detected: bool,
     pub bias_norm_interval: Interval,
@@ -367,12 +370,16 @@ pub fn summarise_with(
         })
         .collect::<Vec<_>>();
     let raw: Vec<Option<f64>> = stats.iter().map(|(p, _, _)| p.stats.bias_p).collect();
-    let adjusted = cfg.multiplicity.adjust(&raw);
+    let members: Vec<&EstimatorStats> = stats.iter().map(|(p, _, _)| &p.stats).collect();
+    let same = repeated_tests(&members, ctx.ref_reps.nrows());
+    let adjusted = cfg.multiplicity.adjust_grouped(&raw, &same);
     let stats = stats
         .into_iter()
         .zip(adjusted)
-        .map(|((pending, constant, point_constant), adj)| {
+        .zip(same.iter().enumerate().map(|(k, &j)| j != k))
+        .map(|(((pending, constant, point_constant), adj), repeats)| {
             let mut st = decide(&ctx, pending, adj);
+            st.repeats_a_test = repeats;
             constant_note(
                 &mut st.notes,
                 constant,
@@ -383,6 +390,37 @@ pub fn summarise_with(
         })
         .collect();
     (stats, signal)
+}
+
+/// For each estimator, the first one whose bias test it repeats: the same estimator under
+/// another name (gae:0, nstep:1 and td), recognised by a point gradient equal to 1e-9 of its
+/// norm and raw p-values within 2 / (B + 1) of each other (one replicate's tie may differ
+/// by rounding). Itself when it repeats none.
+fn repeated_tests(stats: &[&EstimatorStats], b: usize) -> Vec<usize> {
+    let norm = |g: &[f64]| g.iter().map(|x| x * x).sum::<f64>().sqrt();
+    let same = |x: &EstimatorStats, y: &EstimatorStats| {
+        let (Some(p), Some(q)) = (x.bias_p, y.bias_p) else {
+            return false;
+        };
+        let dist = norm(
+            &x.gradient
+                .iter()
+                .zip(&y.gradient)
+                .map(|(a, c)| a - c)
+                .collect::<Vec<_>>(),
+        );
+        let scale = norm(&x.gradient).max(norm(&y.gradient));
+        dist <= 1e-9 * scale && (p - q).abs() <= 2.0 / (b as f64 + 1.0)
+    };
+    let mut first: Vec<usize> = Vec::with_capacity(stats.len());
+    for i in 0..stats.len() {
+        // The group's first member, so that every member points at one entry.
+        let j = (0..i)
+            .find(|&j| same(stats[i], stats[j]))
+            .map_or(i, |j| first[j]);
+        first.push(j);
+    }
+    first
 }
 
 fn constant_note(notes: &mut Vec<String>, constant: usize, point: bool, b_count: usize) {
@@ -550,6 +588,7 @@ fn estimator_stats(
         bias_z,
         bias_p,
         bias_p_adjusted: None,
+        repeats_a_test: false,
         bias_detected: false,
         bias_norm_interval: norm_interval(
             sp.bias_norms.iter().map(|x| x * x).collect(),

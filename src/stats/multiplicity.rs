@@ -69,9 +69,49 @@ impl Multiplicity {
     }
 }
 
+impl Multiplicity {
+    /// [`Multiplicity::adjust`] where some tests are one test under several names: `same[i]`
+    /// is the index of the first entry that test i repeats (i itself when it is new). Each group
+    /// counts once in m, with its smallest raw p, and every member gets the group's adjusted
+    /// value. (gae:0, nstep:1 and td are one estimator: counting it three times would make the
+    /// table's other tests needlessly conservative.)
+    pub fn adjust_grouped(self, p: &[Option<f64>], same: &[usize]) -> Vec<Option<f64>> {
+        let mut first: Vec<Option<f64>> = vec![None; p.len()];
+        for (i, &g) in same.iter().enumerate() {
+            if let Some(x) = p[i] {
+                first[g] = Some(first[g].map_or(x, |y: f64| y.min(x)));
+            }
+        }
+        let adjusted = self.adjust(&first);
+        (0..p.len()).map(|i| p[i].and(adjusted[same[i]])).collect()
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    // Three copies of one test and two others: Holm over m = 3 distinct tests by hand
+    // (sorted 0.01, 0.02, 0.04: 3 x 0.01 = 0.03, max(0.03, 2 x 0.02) = 0.04,
+    // max(0.04, 1 x 0.04) = 0.04), the copies sharing their group's value; the ungrouped
+    // adjustment over m = 5 gives 0.05 for the smallest instead.
+    #[test]
+    fn repeated_tests_count_once() {
+        let p = [Some(0.02), Some(0.01), Some(0.01), Some(0.01), Some(0.04)];
+        let same = [0, 1, 1, 1, 4];
+        let adj = Multiplicity::Holm.adjust_grouped(&p, &same);
+        let want = [0.04, 0.03, 0.03, 0.03, 0.04];
+        for (a, w) in adj.iter().zip(want) {
+            assert!((a.unwrap() - w).abs() < 1e-15, "{adj:?}");
+        }
+        assert!((Multiplicity::Holm.adjust(&p)[1].unwrap() - 0.05).abs() < 1e-15);
+        // No repeats: the same as adjust.
+        let plain = [0, 1, 2, 3, 4];
+        assert_eq!(
+            Multiplicity::Bh.adjust_grouped(&p, &plain),
+            Multiplicity::Bh.adjust(&p)
+        );
+    }
 
     // Worked example: p = (0.01, 0.04, 0.03, 0.005), m = 4, with None (the reference) kept.
     // Holm, sorted 0.005, 0.01, 0.03, 0.04: 4*0.005 = 0.02, 3*0.01 = 0.03, 2*0.03 = 0.06,
