@@ -811,7 +811,8 @@ pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
     Ok(out)
 }
 
-/// Gives each per-episode row with a defined mse its mse interval (stats/mse.rs);
+/// Gives each per-episode row with a defined mse its mse interval and bias_sq's upper end
+/// (stats/mse.rs);
 /// the influence columns of every estimator share one pass of the bootstrap's counts.
 fn mse_intervals(report: &mut AuditReport, data: &Collected, prep: &Prepared, cfg: &AuditConfig) {
     let plan = &prep.plan;
@@ -831,10 +832,14 @@ fn mse_intervals(report: &mut AuditReport, data: &Collected, prep: &Prepared, cf
         splits: cfg.splits,
     };
     let (gr, _) = stats::ReplicateGradients::bootstrap(&source, prep.reference);
+    // Two draws per estimator (mse, then bias_sq), all through one pass of the counts.
     let draws: Vec<_> = (0..plan.estimators.len())
-        .map(|k| {
+        .flat_map(|k| {
             let pair = (k, prep.reference);
-            defined(k).then(|| significance::mse_draws(data, plan, pair, &gr, cfg))?
+            defined(k)
+                .then(|| significance::interval_draws(data, plan, pair, &gr, cfg))
+                .flatten()
+                .unwrap_or([None, None])
         })
         .collect();
     let seed = cfg.seed;
@@ -843,9 +848,10 @@ fn mse_intervals(report: &mut AuditReport, data: &Collected, prep: &Prepared, cf
             resample::bootstrap_counts(seed, b as u64, w)
         })
     });
-    for (name, (_, iv)) in names.iter().zip(spreads) {
+    for (name, pair) in names.iter().zip(spreads.chunks(2)) {
         if let Some(row) = report.estimators.iter_mut().find(|r| &r.name == name) {
-            row.mse_interval = iv;
+            row.mse_interval = pair[0].1;
+            row.bias_sq_upper = pair[1].1.map(|i| i.high);
         }
     }
 }

@@ -160,20 +160,21 @@ fn resampled_columns(
     means
 }
 
-/// Per-episode estimator k's MSE draws against the reference (stats/mse.rs), from the
-/// multinomial bootstrap's replicate gradients and moments and the episode jackknife; None for
-/// a batch-dependent estimator (no per-episode moments) or where a figure overflowed.
+/// Per-episode estimator k's MSE and bias_sq draws against the reference (stats/mse.rs), from
+/// the multinomial bootstrap's replicate gradients and moments and the episode jackknife; None
+/// for a batch-dependent estimator (no per-episode moments), each None where its figure
+/// overflowed.
 ///
 /// `gr` holds the reference's replicate gradients (`Resampler::bootstrap(reference)`), formed
 /// once for every estimator.
-pub fn mse_draws(
+pub fn interval_draws(
     data: &Collected,
     plan: &Plan,
     (k, reference): (usize, usize),
     gr: &ndarray::Array2<f64>,
     cfg: &AuditConfig,
-) -> Option<crate::stats::mse::Draws> {
-    use crate::stats::mse::{Draws, Parts};
+) -> Option<[Option<crate::stats::mse::Draws>; 2]> {
+    use crate::stats::mse::{Draws, Figure, Parts};
     let start = plan.moment_start()?;
     plan.moments(k, &vec![0.0; plan.width()])?;
     let contrib = data.contrib.view();
@@ -188,10 +189,12 @@ pub fn mse_draws(
     let (gk, _) = source.bootstrap(k);
     let cols = [start + 2 * k, start + 2 * k + 1];
     let moments = resampled_columns(contrib, &cols, cfg);
-    let reps = (0..cfg.resamples).map(|b| {
-        let m = (moments[[b, 0]], moments[[b, 1]]);
-        Parts::new(&gk.row(b).to_vec(), &gr.row(b).to_vec(), m, n)
-    });
+    let reps: Vec<Parts> = (0..cfg.resamples)
+        .map(|b| {
+            let m = (moments[[b, 0]], moments[[b, 1]]);
+            Parts::new(&gk.row(b).to_vec(), &gr.row(b).to_vec(), m, n)
+        })
+        .collect();
     let (ck, cr) = (plan.columns(k), plan.columns(reference));
     let at = |mean: &[f64]| {
         Parts::new(
@@ -203,15 +206,18 @@ pub fn mse_draws(
     };
     let total: Vec<f64> = contrib.sum_axis(ndarray::Axis(0)).to_vec();
     let whole = at(&total.iter().map(|x| x / n as f64).collect::<Vec<_>>());
-    let jack = contrib.outer_iter().map(|row| {
-        let loo: Vec<f64> = total
-            .iter()
-            .zip(row)
-            .map(|(t, x)| (t - x) / (n as f64 - 1.0))
-            .collect();
-        at(&loo)
-    });
-    Draws::new(whole, reps, jack)
+    let jack: Vec<Parts> = contrib
+        .outer_iter()
+        .map(|row| {
+            let loo: Vec<f64> = total
+                .iter()
+                .zip(row)
+                .map(|(t, x)| (t - x) / (n as f64 - 1.0))
+                .collect();
+            at(&loo)
+        })
+        .collect();
+    Some([Figure::Mse, Figure::BiasSq].map(|f| Draws::new(f, &whole, &reps, &jack)))
 }
 
 /// The interval of B_simple for per-episode estimator k from replicate mean rows (the Poisson

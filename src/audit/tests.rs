@@ -644,8 +644,9 @@ fn ids_1_and_01_in_any_order_give_identical_output() {
 }
 
 // The gate's mse end is the larger of two upper bounds (gate::pessimistic): bias_sq's upper
-// end plus the point variance, and the row's studentised mse interval's upper end; snr's low
-// end divides the signal's low end by it. Asked for, every per-episode row gets an interval
+// end plus the point variance, and the row's mse interval's upper end; snr's low end divides
+// the signal's low end by it; bias_sq's end is the larger of its percentile and its
+// stats/mse.rs upper ends. Asked for, every per-episode row gets an interval
 // around its own mse; not asked for, none does.
 #[test]
 fn gate_mse_end_is_the_larger_of_its_two_bounds() {
@@ -657,12 +658,24 @@ fn gate_mse_end_is_the_larger_of_its_two_bounds() {
     };
     let text = lq.log(300, 0.0, 3);
     let plain = audit_text(&text, &cfg("rtg,total,rtg_discounted", 0.5));
-    assert!(plain.estimators.iter().all(|r| r.mse_interval.is_none()));
+    assert!(
+        plain
+            .estimators
+            .iter()
+            .all(|r| r.mse_interval.is_none() && r.bias_sq_upper.is_none())
+    );
+    // The biased rtg_discounted gets a bias_sq upper end above its estimate; the reference's
+    // (bias 0 in every replicate) is 0.
+    let disc_upper = |r: &AuditReport| row(r, "rtg_discounted").bias_sq_upper;
     let asked = AuditConfig {
         mse_intervals: true,
         ..cfg("rtg,total,rtg_discounted", 0.5)
     };
     let report = audit_text(&text, &asked);
+    assert!(
+        disc_upper(&report).is_some_and(|u| u > row(&report, "rtg_discounted").bias_sq.unwrap())
+    );
+    assert!(row(&report, "rtg").bias_sq_upper.is_none_or(|u| u == 0.0));
     for r in &report.estimators {
         let iv = r
             .mse_interval
@@ -678,6 +691,13 @@ fn gate_mse_end_is_the_larger_of_its_two_bounds() {
         let old = pessimistic(&report, &without, Stat::Mse).unwrap();
         let end = pessimistic(&report, r, Stat::Mse).unwrap();
         assert_eq!(end, old.max(iv.high), "{}", r.name);
+        let b_hi = pessimistic(&report, r, Stat::BiasSq).unwrap();
+        let percentile_hi = r.bias_sq_interval.expect("defined").high;
+        assert_eq!(
+            b_hi,
+            r.bias_sq_upper
+                .map_or(percentile_hi, |u| u.max(percentile_hi))
+        );
         let snr = pessimistic(&report, r, Stat::Snr).unwrap();
         let s_lo = report.signal_interval.expect("a signal").low;
         assert!((snr - s_lo / end).abs() <= 1e-12 * snr.abs(), "{}", r.name);

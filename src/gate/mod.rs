@@ -150,7 +150,12 @@ fn note_or(row: &EstimatorRow, fallback: &str) -> String {
 /// upper bound, the variance and the reference variance, or why one is undefined.
 fn interval_inputs(report: &AuditReport, row: &EstimatorRow) -> Result<[f64; 4], String> {
     let s_lo = report.signal_interval.map(|i| i.low);
-    let b_hi = row.bias_sq_interval.map(|i| i.high);
+    // The larger of two upper bounds at the same level (the percentile one, and the BCa /
+    // studentised one of stats/mse.rs where the audit formed it): exceeded no more often than
+    // either.
+    let b_hi = row
+        .bias_sq_interval
+        .map(|i| row.bias_sq_upper.map_or(i.high, |u| u.max(i.high)));
     match (s_lo, b_hi, row.variance, report.reference_variance) {
         (Some(s), Some(b), Some(v), Some(r)) => Ok([s, b, v, r]),
         _ => Err(note_or(row, "a figure it derives from is undefined")),
@@ -292,7 +297,16 @@ pub fn evaluate(report: &AuditReport, rules: &[Rule]) -> Vec<Outcome> {
 /// interval end.
 pub fn include_named(cfg: &mut crate::audit::AuditConfig, rules: &RuleSet) {
     cfg.mse_intervals |= rules.rules.iter().any(|r| {
-        r.at == rules::At::Interval && matches!(r.stat, Stat::Mse | Stat::Snr | Stat::Ess)
+        let built_on_them = matches!(
+            r.stat,
+            Stat::Snr
+                | Stat::Ess
+                | Stat::RelativeBias
+                | Stat::EpisodesForSnr
+                | Stat::BiasSq
+                | Stat::Mse
+        );
+        r.at == rules::At::Interval && built_on_them
     });
     let named = rules.named_estimators();
     if named.is_empty() {

@@ -144,6 +144,7 @@ mod tests {
             bias_limited: false,
             noise_scale: None,
             mse_interval: None,
+            bias_sq_upper: None,
             notes: vec![],
         }
     }

@@ -253,6 +253,10 @@ pub struct EstimatorRow {
     /// or ess rule); absent from JSON otherwise.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub mse_interval: Option<Interval>,
+    /// The high end of bias_sq's interval of the same method (stats/mse.rs), asked for with
+    /// mse_interval; the gate uses the larger of it and bias_sq_interval's high end.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub bias_sq_upper: Option<f64>,
     pub notes: Vec<String>,
 }
 
@@ -351,6 +355,7 @@ impl EstimatorRow {
             bias_limited: signal && s.bias_limited,
             noise_scale: s.noise_scale.filter(|x| signal && x.is_finite()),
             mse_interval: None,
+            bias_sq_upper: None,
             notes,
         }
     }

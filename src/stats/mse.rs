@@ -80,7 +80,8 @@ pub fn at_least_0(x: f64) -> f64 {
     if x < 0.0 { 0.0 } else { x }
 }
 
-/// One estimator's MSE as every replicate and every leave-one-out sample estimate it.
+/// One estimator's MSE (or bias_sq) as every replicate and every leave-one-out sample
+/// estimate it.
 pub struct Draws {
     replicates: Vec<f64>,
     /// Per replicate, r_b = (d-bar . d-bar*_b) / |d-bar|^2 (1 when d-bar = 0).
@@ -91,30 +92,57 @@ pub struct Draws {
     jack_var: Vec<f64>,
 }
 
+/// Which figure the draws are of.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Figure {
+    /// bias_sq + V_k.
+    Mse,
+    /// bias_sq alone (its variance term is 0).
+    BiasSq,
+}
+
+impl Figure {
+    fn of(self, p: &Parts) -> f64 {
+        match self {
+            Figure::Mse => p.mse(),
+            Figure::BiasSq => p.bias_sq,
+        }
+    }
+}
+
 impl Draws {
-    /// The draws from the whole log's parts, each replicate's and each leave-one-out sample's
-    /// (in episode order); None when fewer than two replicates, or when a figure overflowed
-    /// f64 (a spread of overflowed figures is undefined).
+    /// The draws of `figure` from the whole log's parts, each replicate's and each
+    /// leave-one-out sample's (in episode order); None when fewer than two replicates, or when
+    /// a figure overflowed f64 (a spread of overflowed figures is undefined).
     pub fn new(
-        whole: Parts,
-        replicates: impl Iterator<Item = Parts>,
-        jackknife: impl Iterator<Item = Parts>,
+        figure: Figure,
+        whole: &Parts,
+        replicates: &[Parts],
+        jackknife: &[Parts],
     ) -> Option<Draws> {
         let dd: f64 = whole.diff.iter().map(|x| x * x).sum();
-        let (mut mses, mut ratio) = (Vec::new(), Vec::new());
+        let (mut values, mut ratio) = (Vec::new(), Vec::new());
         for p in replicates {
             let along: f64 = p.diff.iter().zip(&whole.diff).map(|(a, b)| a * b).sum();
             ratio.push(if dd > 0.0 { along / dd } else { 1.0 });
-            mses.push(p.mse());
+            values.push(figure.of(p));
         }
-        let (jack_bias, jack_var): (Vec<f64>, Vec<f64>) =
-            jackknife.map(|p| (p.bias_sq, p.var_k)).unzip();
-        let all = mses.iter().chain(&ratio).chain(&jack_bias).chain(&jack_var);
-        let finite = whole.mse().is_finite() && all.clone().all(|x| x.is_finite());
-        (mses.len() >= 2 && jack_bias.len() >= 2 && finite).then_some(Draws {
-            replicates: mses,
+        let jack_bias: Vec<f64> = jackknife.iter().map(|p| p.bias_sq).collect();
+        let jack_var: Vec<f64> = match figure {
+            Figure::Mse => jackknife.iter().map(|p| p.var_k).collect(),
+            Figure::BiasSq => vec![0.0; jackknife.len()],
+        };
+        let estimate = figure.of(whole);
+        let all = values
+            .iter()
+            .chain(&ratio)
+            .chain(&jack_bias)
+            .chain(&jack_var);
+        let finite = estimate.is_finite() && all.clone().all(|x| x.is_finite());
+        (values.len() >= 2 && jack_bias.len() >= 2 && finite).then_some(Draws {
+            replicates: values,
             ratio,
-            estimate: whole.mse(),
+            estimate,
             jack_bias,
             jack_var,
         })
@@ -282,7 +310,8 @@ mod tests {
             w[i] = 0.0;
             parts(&w)
         });
-        Draws::new(parts(&vec![1.0; n]), reps, jack).expect("finite draws")
+        let (reps, jack): (Vec<Parts>, Vec<Parts>) = (reps.collect(), jack.collect());
+        Draws::new(Figure::Mse, &parts(&vec![1.0; n]), &reps, &jack).expect("finite draws")
     }
 
     // Closed form: the plug-in variance m2 = mean (g_i - g-bar)^2 has influence function

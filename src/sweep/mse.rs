@@ -7,7 +7,7 @@ use crate::contrib::Plan;
 use crate::error::Result;
 use crate::resample;
 use crate::stats::Interval;
-use crate::stats::mse::{self, Draws, Parts};
+use crate::stats::mse::{self, Draws, Figure, Parts};
 use ndarray::{Array2, ArrayView2};
 
 /// The MSE parts of point k for one mean row of a batch of n episodes.
@@ -34,14 +34,18 @@ pub(super) fn draws(
         let mean: Vec<f64> = sum.iter().map(|x| x / count).collect();
         parts(plan, k, &mean, n)
     };
-    let reps = replicates
+    let reps: Vec<Parts> = replicates
         .outer_iter()
-        .map(|row| parts(plan, k, row.as_slice().expect("contiguous rows"), n));
-    let jack = contrib.outer_iter().map(|row| {
-        let loo: Vec<f64> = total.iter().zip(row).map(|(t, x)| t - x).collect();
-        at(&loo, n as f64 - 1.0)
-    });
-    Draws::new(at(&total, n as f64), reps, jack)
+        .map(|row| parts(plan, k, row.as_slice().expect("contiguous rows"), n))
+        .collect();
+    let jack: Vec<Parts> = contrib
+        .outer_iter()
+        .map(|row| {
+            let loo: Vec<f64> = total.iter().zip(row).map(|(t, x)| t - x).collect();
+            at(&loo, n as f64 - 1.0)
+        })
+        .collect();
+    Draws::new(Figure::Mse, &at(&total, n as f64), &reps, &jack)
 }
 
 /// Each point's (bootstrap standard error, interval) of its MSE; refuses influence columns
