@@ -792,7 +792,13 @@ pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
     let layout = prep.layout(cfg);
     if cfg.resampling == Resampling::Poisson {
         let mut part = streamed::accumulate(reader, &prep, cfg)?;
-        return streamed::finish(&mut part, &layout, cfg);
+        let mut report = streamed::finish(&mut part, &layout, cfg)?;
+        plain_ends_warning(
+            cfg,
+            "--resampling poisson holds no per-episode rows",
+            &mut report,
+        );
+        return Ok(report);
     }
     let data = collect(reader, &prep.plan, cfg, &prep.scores)?;
     let n = data.contrib.nrows();
@@ -805,10 +811,29 @@ pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
     };
     let mut out = report(&layout, cfg, (data.input.clone(), warnings), stats, &scale);
     // Sketched or projected figures are rescaled in report(); the interval would not be.
-    if cfg.mse_intervals && !layout.per_coord() {
+    if layout.per_coord() {
+        plain_ends_warning(cfg, "the scores are sketched or projected", &mut out);
+    } else if cfg.mse_intervals {
         mse_intervals(&mut out, &data, &prep, cfg);
     }
     Ok(out)
+}
+
+/// When the interval ends of bias_sq and mse were asked for (a gate rule) but cannot be formed
+/// in this run, says so: the ends are then the percentile ones, which under-cover with
+/// heavy-tailed episodes (README, "Coverage of the intervals").
+fn plain_ends_warning(cfg: &AuditConfig, why: &str, report: &mut AuditReport) {
+    if cfg.mse_intervals {
+        report.warnings.add(
+            "percentile_interval_ends",
+            format!(
+                "the interval ends of bias_sq, mse and the figures built on them are the \
+                 percentile ones: {why} for the studentised ends, so they may be optimistic \
+                 (README, \"Coverage of the intervals\")"
+            ),
+            None,
+        );
+    }
 }
 
 /// Gives each per-episode row with a defined mse its mse interval and bias_sq's upper end

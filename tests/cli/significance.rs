@@ -118,3 +118,44 @@ fn every_format_says_how_biases_were_decided() {
         assert!(md.contains(line), "{line}");
     }
 }
+
+// The gate's mse end read at the interval (gate::pessimistic, README "Coverage of the
+// intervals"): the larger of the row's mse interval high end and bias_sq's upper end (itself
+// the larger of its percentile and its stats/mse.rs ends) plus the variance. Only a gate rule
+// read at the interval end asks for those ends; with --resampling poisson they cannot be
+// formed and the report says so instead of passing on optimistic ends silently.
+#[test]
+fn gate_mse_end_comes_from_the_rows_interval_ends() {
+    let rover = demo("docking_rover.csv");
+    let args = |extra: &[&'static str]| {
+        let mut a = vec!["gate", rover.as_str(), "--require", "td:mse<=1e9@interval"];
+        a.extend_from_slice(&["--resamples", "300", "--format", "json"]);
+        a.extend_from_slice(extra);
+        a
+    };
+    let v = run_json(&args(&[]));
+    let row = v["audit"]["estimators"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|r| r["name"] == "td")
+        .unwrap();
+    let f = |x: &serde_json::Value| x.as_f64().expect("a number");
+    let b_hi = f(&row["bias_sq_interval"]["high"]).max(f(&row["bias_sq_upper"]));
+    let want = f(&row["mse_interval"]["high"]).max(b_hi + f(&row["variance"]));
+    let measured = f(&v["outcomes"][0]["measured"]);
+    assert!(
+        (measured - want).abs() <= 1e-12 * want,
+        "{measured} vs {want}"
+    );
+    assert!(measured > f(&row["mse"]));
+    let warned = |v: &serde_json::Value| {
+        v["audit"]["warnings"]
+            .to_string()
+            .contains("percentile_interval_ends")
+    };
+    assert!(!warned(&v));
+    let p = run_json(&args(&["--resampling", "poisson"]));
+    assert!(warned(&p), "{}", p["audit"]["warnings"]);
+    assert!(p["audit"]["estimators"][0].get("mse_interval").is_none());
+}
