@@ -84,3 +84,119 @@ fn a_layer_without_a_required_field_is_named_with_its_file_and_index() {
         assert!(err.contains(&format!("{file}: {want}")), "{want}: {err}");
     }
 }
+
+/// A small log of `n` three-step episodes with one obs and one score column, every third
+/// episode truncated without `next_value`; `next_obs` adds a `next_obs_0` column.
+fn truncating_log(n: usize, next_obs: bool) -> String {
+    let mut s = String::from("episode,step,reward,terminated,truncated,obs_0,score_0");
+    s.push_str(if next_obs { ",next_obs_0\n" } else { "\n" });
+    for e in 0..n {
+        for t in 0..3 {
+            let last = t == 2;
+            let (term, trunc) = match (last, e % 3 == 0) {
+                (true, true) => (0, 1),
+                (true, false) => (1, 0),
+                _ => (0, 0),
+            };
+            let obs = (e * 3 + t) as f64 * 0.1;
+            let score = ((e * 7 + t * 3) % 5) as f64 - 2.0;
+            s.push_str(&format!(
+                "e{e},{t},{},{term},{trunc},{obs},{score}",
+                1.0 + t as f64
+            ));
+            if next_obs {
+                s.push_str(&format!(",{}", obs + 0.1));
+            }
+            s.push('\n');
+        }
+    }
+    s
+}
+
+/// The `truncated_without_bootstrap` message of a JSON report, or None when not counted.
+fn no_bootstrap_message(report: &serde_json::Value) -> Option<String> {
+    let w = &report["warnings"]["truncated_without_bootstrap"];
+    w["message"].as_str().map(|m| {
+        // 30 episodes, every third truncated: episodes 0, 3, .., 27.
+        assert_eq!(w["count"], 10, "{report}");
+        m.to_string()
+    })
+}
+
+/// The warning about truncated episodes without a bootstrap value says how to give them one
+/// (`--value-net FILE` or `--fit-value`, worded for the command and the log's columns), and
+/// following either advice removes it.
+#[test]
+fn the_no_bootstrap_warning_suggests_a_value_network_or_a_fit() {
+    let dir = Dir::new("leftover_boot");
+    let log = dir.write("log.csv", truncating_log(30, false).as_bytes());
+    let audit = |log: &str, extra: &[&str]| {
+        let mut args = vec![
+            "audit",
+            log,
+            "--estimators",
+            "rtg,td",
+            "--resamples",
+            "50",
+            "--format",
+            "json",
+        ];
+        args.extend(extra);
+        crate::util::run_json(&args)
+    };
+    let m = no_bootstrap_message(&audit(&log, &[])).expect("counted");
+    assert!(
+        m.ends_with(
+            "its tail value is taken as 0, which biases value-based estimators; to bootstrap \
+             truncated episodes, pass --value-net FILE (a value network's V at its last logged \
+             observation, as the log has no next-observation columns) or --fit-value (a \
+             cross-fitted ridge fit of V on obs and time; reads the log twice)"
+        ),
+        "{m}"
+    );
+    let inspect = crate::util::run_json(&["inspect", &log, "--format", "json"]);
+    let m = no_bootstrap_message(&inspect).expect("counted");
+    assert!(
+        m.contains("to bootstrap truncated episodes, audit with --value-net FILE"),
+        "{m}"
+    );
+    // With next-observation columns the value network's bootstrap state is named.
+    let with_next = dir.write("next.csv", truncating_log(30, true).as_bytes());
+    let m = no_bootstrap_message(&audit(&with_next, &[])).expect("counted");
+    assert!(
+        m.contains(
+            "--value-net FILE (a value network's V at the logged next observation (next_obs_0))"
+        ),
+        "{m}"
+    );
+    // Without obs columns only the fit can help.
+    let no_obs: String = truncating_log(30, false)
+        .lines()
+        .map(|l| {
+            let f: Vec<&str> = l.split(',').collect();
+            format!("{},{}\n", f[..5].join(","), f[6])
+        })
+        .collect();
+    let no_obs = dir.write("no_obs.csv", no_obs.as_bytes());
+    let m = no_bootstrap_message(&audit(&no_obs, &[])).expect("counted");
+    assert!(
+        m.contains("pass --fit-value (a cross-fitted ridge fit of V; on time alone")
+            && m.contains("or add obs columns for --value-net FILE"),
+        "{m}"
+    );
+    // Following the advice: both options bootstrap every truncated end, so no warning.
+    let value = dir.write(
+        "value.json",
+        br#"{"schema": "gradaudit.policy/1", "family": "mlp_value", "features": ["obs_0"],
+ "tensors": {"w": [[0.5]], "b": [0.25]},
+ "layers": [{"weight": "w", "bias": "b", "activation": "identity"}]}"#,
+    );
+    let fitted = audit(&with_next, &["--fit-value"]);
+    assert_eq!(no_bootstrap_message(&fitted), None, "{fitted}");
+    let net = audit(&with_next, &["--value-net", &value]);
+    assert_eq!(no_bootstrap_message(&net), None, "{net}");
+    assert_eq!(
+        net["input"]["value_net"]["bootstrap"],
+        "logged_next_observation"
+    );
+}
