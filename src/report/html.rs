@@ -149,6 +149,15 @@ fn facts(r: &AuditReport) -> String {
         let _ = write!(s, " {}.", esc(&sentence(&line)).trim_end_matches('.'));
     }
     s.push_str("</p>\n");
+    if let Some(v) = &i.value_net {
+        let line = format!(
+            "Value network {} explains {} of the return variance; {}",
+            v.file,
+            super::table::value_net_share(v),
+            v.note
+        );
+        let _ = writeln!(s, "<p class=\"facts\">{}</p>", esc(&sentence(&line)));
+    }
     if let Some(sk) = &i.sketch {
         let _ = writeln!(s, "<p class=\"facts\">{}</p>", esc(&sentence(&sk.note)));
     }

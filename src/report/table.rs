@@ -143,9 +143,7 @@ pub fn render_with(r: &AuditReport, wide: bool) -> String {
             &format!(
                 "value network {} (explains {} of the return variance): {}",
                 v.file,
-                v.explained_variance
-                    .filter(|x| x.is_finite())
-                    .map_or("an undefined share".to_string(), |x| format!("{x:.3}")),
+                value_net_share(v),
                 v.note
             ),
             WIDTH,
@@ -208,6 +206,14 @@ pub fn render_with(r: &AuditReport, wide: bool) -> String {
 }
 
 /// One line on the critics' quality, when there is a critic.
+/// The share of the return variance a value network explains (`--value-net`), three
+/// decimals, or "an undefined share": the same figure in every format.
+pub fn value_net_share(v: &crate::critic::net::ValueNetSummary) -> String {
+    v.explained_variance
+        .filter(|x| x.is_finite())
+        .map_or("an undefined share".to_string(), |x| format!("{x:.3}"))
+}
+
 pub fn critic_line(c: &crate::critic::CriticQuality) -> Option<String> {
     // An explained variance of -inf (a critic whose errors overflowed) is undefined too.
     let ev = |x: Option<f64>| {

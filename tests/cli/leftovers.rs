@@ -200,3 +200,108 @@ fn the_no_bootstrap_warning_suggests_a_value_network_or_a_fit() {
         "logged_next_observation"
     );
 }
+
+/// The text of every `<p class="facts">` of an HTML page.
+fn html_facts(html: &str) -> Vec<String> {
+    let doc = crate::report_html::parse(html);
+    doc.descendants()
+        .filter(|n| n.has_tag_name("p") && crate::report_html::has_class(n, "facts"))
+        .map(|n| {
+            n.descendants()
+                .filter(|d| d.is_text())
+                .filter_map(|d| d.text())
+                .collect()
+        })
+        .collect()
+}
+
+/// The Markdown audit gives the value network's line (and the critic's) as the terminal and
+/// HTML reports do, with the JSON's figures: the file, the explained variance to 3 decimals,
+/// the bootstrap note. Before, the Markdown had neither.
+#[test]
+fn markdown_audit_names_the_value_network_like_the_other_formats() {
+    let dir = Dir::new("leftover_md");
+    let value = dir.write(
+        "value.json",
+        br#"{"schema": "gradaudit.policy/1", "family": "mlp_value", "features": ["obs_0", "obs_1"],
+ "tensors": {"w": [[-1.5, -0.5]], "b": [-2.0]},
+ "layers": [{"weight": "w", "bias": "b", "activation": "identity"}]}"#,
+    );
+    let rover = demo("docking_rover.csv");
+    let args = |format: &'static str| {
+        vec![
+            "audit",
+            rover.as_str(),
+            "--estimators",
+            "rtg,td,gae:0.9",
+            "--resamples",
+            "100",
+            "--value-net",
+            value.as_str(),
+            "--format",
+            format,
+        ]
+    };
+    let json = crate::util::run_json(&args("json"));
+    let v = &json["input"]["value_net"];
+    let ev = v["explained_variance"]
+        .as_f64()
+        .expect("defined on the rover");
+    let note = v["note"].as_str().unwrap();
+    assert!(note.contains("last logged observation"), "{note}");
+    let (code, md, err) = run(&args("markdown"));
+    assert_eq!(code, 0, "{err}");
+    let want =
+        format!("- value network `{value}`: explains {ev:.3} of the return variance; {note}");
+    let md_lines: Vec<&str> = md.lines().collect();
+    assert!(md_lines.contains(&want.as_str()), "{want}\n{md}");
+    // In the header's list, before the table.
+    let at = md_lines.iter().position(|l| *l == want).unwrap();
+    let table = md_lines
+        .iter()
+        .position(|l| l.starts_with("| estimator"))
+        .unwrap();
+    assert!(at < table, "{md}");
+    // The terminal report: the same figure and note (wrapped at 100 columns).
+    let (_, text, _) = run(&args("table"));
+    let flat = text.split_whitespace().collect::<Vec<_>>().join(" ");
+    let words = |s: &str| s.split_whitespace().collect::<Vec<_>>().join(" ");
+    assert!(
+        flat.contains(&words(&format!(
+            "value network {value} (explains {ev:.3} of the return variance): {note}"
+        ))),
+        "{text}"
+    );
+    // The HTML page: one facts paragraph with the same, as a sentence.
+    let (_, html, _) = run(&args("html"));
+    let facts = html_facts(&html);
+    let want = format!("Value network {value} explains {ev:.3} of the return variance; {note}.");
+    assert!(facts.contains(&want), "{want}\n{facts:?}");
+
+    // --fit-value: the critic's line, with the JSON's explained variance.
+    let fit = |format: &'static str| {
+        run(&[
+            "audit",
+            rover.as_str(),
+            "--estimators",
+            "rtg,td",
+            "--resamples",
+            "100",
+            "--fit-value",
+            "--format",
+            format,
+        ])
+    };
+    let json: serde_json::Value = serde_json::from_str(&fit("json").1).unwrap();
+    let c = &json["input"]["critic"];
+    let want = format!(
+        "- critic: fitted by 5-fold cross-fitted ridge regression on {} features, explained \
+         variance {:.3} (the recorded critic, ignored: {:.3})",
+        c["fitted_features"],
+        c["fitted_explained_variance"].as_f64().unwrap(),
+        c["recorded_explained_variance"].as_f64().unwrap()
+    );
+    let md = fit("markdown").1;
+    assert!(md.lines().any(|l| l == want), "{want}\n{md}");
+    assert!(!md.contains("value network"), "{md}");
+}
