@@ -58,6 +58,14 @@ impl Warnings {
         }
     }
 
+    /// Replaces `from` by `to` in the message of the finding `code`, when it was counted: for
+    /// a command that reuses another's pass but gives other advice (shard files).
+    pub fn reword(&mut self, code: &str, from: &str, to: &str) {
+        if let Some(w) = self.items.get_mut(code) {
+            w.message = w.message.replace(from, to);
+        }
+    }
+
     /// Drops a finding that a later stage made moot.
     pub fn remove(&mut self, code: &str) {
         self.items.remove(code);

@@ -199,6 +199,16 @@ fn the_no_bootstrap_warning_suggests_a_value_network_or_a_fit() {
         net["input"]["value_net"]["bootstrap"],
         "logged_next_observation"
     );
+    // A shard cannot take either option: its merge advises auditing the whole log with them.
+    let shard = dir.path("log.shard").to_string_lossy().into_owned();
+    let (code, _, err) = run(&["shard", &log, "--out", &shard, "--estimators", "rtg,td"]);
+    assert_eq!(code, 0, "{err}");
+    let merged = crate::util::run_json(&["merge", &shard, "--format", "json"]);
+    let m = no_bootstrap_message(&merged).expect("counted");
+    assert!(
+        m.contains("to bootstrap truncated episodes, audit the whole log with --value-net FILE"),
+        "{m}"
+    );
 }
 
 /// The text of every `<p class="facts">` of an HTML page.
@@ -304,4 +314,118 @@ fn markdown_audit_names_the_value_network_like_the_other_formats() {
     let md = fit("markdown").1;
     assert!(md.lines().any(|l| l == want), "{want}\n{md}");
     assert!(!md.contains("value network"), "{md}");
+}
+
+/// Splits the rover demo into `k` logs by episode (episode i into part i mod k), writes each
+/// one's shard, and returns (shard paths, log paths).
+fn rover_shards(dir: &Dir, k: usize) -> (Vec<String>, Vec<String>) {
+    let text = std::fs::read_to_string(demo("docking_rover.csv")).unwrap();
+    let mut lines = text.lines();
+    let header = lines.next().unwrap();
+    let mut parts = vec![format!("{header}\n"); k];
+    for line in lines {
+        // Ids are rover-NNNN.
+        let i: usize = line[6..10].parse().unwrap();
+        parts[i % k].push_str(line);
+        parts[i % k].push('\n');
+    }
+    let mut shards = Vec::new();
+    let mut logs = Vec::new();
+    for (i, p) in parts.iter().enumerate() {
+        let log = dir.write(&format!("part{i}.csv"), p.as_bytes());
+        let shard = dir
+            .path(&format!("part{i}.shard"))
+            .to_string_lossy()
+            .into_owned();
+        let (code, _, err) = run(&["shard", &log, "--out", &shard, "--resamples", "100"]);
+        assert_eq!(code, 0, "{err}");
+        shards.push(shard);
+        logs.push(log);
+    }
+    (shards, logs)
+}
+
+/// The merge page's kicker (and title, and the text reports' heading) says it is a merge of
+/// N shards and names them and their logs; up to three in full, more as first .. last. An
+/// audit page still says "audit of". Before, a merge said "gradaudit audit of a + b".
+#[test]
+fn the_merge_page_says_it_merges_shards() {
+    use crate::report_html::{assert_self_contained, by_id, has_class, parse};
+    let dir = Dir::new("leftover_merge");
+    let (shards, logs) = rover_shards(&dir, 4);
+    let text_of = |n: roxmltree::Node| -> String {
+        n.descendants()
+            .filter(|d| d.is_text())
+            .filter_map(|d| d.text())
+            .collect()
+    };
+    let kicker = |html: &str| -> (String, String) {
+        let doc = parse(html);
+        assert_self_contained(html, &doc);
+        let k = doc
+            .descendants()
+            .find(|n| n.has_tag_name("p") && has_class(n, "kicker"))
+            .expect("a kicker");
+        // The kicker sits in the header, above the verdict.
+        assert_eq!(k.next_sibling_element().unwrap(), by_id(&doc, "verdict"));
+        let codes: Vec<String> = k
+            .children()
+            .filter(|c| c.has_tag_name("code"))
+            .map(text_of)
+            .collect();
+        let title = doc
+            .descendants()
+            .find(|n| n.has_tag_name("title"))
+            .map(text_of)
+            .unwrap();
+        assert_eq!(title, text_of(k), "the page's title is its kicker");
+        (text_of(k), codes.join("|"))
+    };
+    let merge = |parts: &[String], format: &str| {
+        let mut args = vec!["merge"];
+        args.extend(parts.iter().map(String::as_str));
+        args.extend(["--format", format]);
+        let (code, out, err) = run(&args);
+        assert_eq!(code, 0, "{err}");
+        out
+    };
+    let three = &shards[..3];
+    let (text, codes) = kicker(&merge(three, "html"));
+    assert_eq!(
+        text,
+        format!(
+            "gradaudit merge of 3 shards ({}, {}, {}) of {}, {}, {}",
+            shards[0], shards[1], shards[2], logs[0], logs[1], logs[2]
+        )
+    );
+    assert_eq!(codes, [&shards[..3], &logs[..3]].concat().join("|"));
+    let (text, _) = kicker(&merge(&shards, "html"));
+    assert_eq!(
+        text,
+        format!(
+            "gradaudit merge of 4 shards ({} .. {}) of {} .. {}",
+            shards[0], shards[3], logs[0], logs[3]
+        )
+    );
+    let (text, _) = kicker(&merge(&shards[..1], "html"));
+    assert_eq!(
+        text,
+        format!("gradaudit merge of 1 shard ({}) of {}", shards[0], logs[0])
+    );
+    // The text reports' headings say the same.
+    // (The terminal report wraps long lines at 100 columns.)
+    let table = merge(three, "table");
+    let flat = table.split_whitespace().collect::<Vec<_>>().join(" ");
+    assert!(
+        flat.starts_with(&format!(
+            "gradaudit merge of 3 shards ({}, {}, {}) of {}, {}, {}",
+            shards[0], shards[1], shards[2], logs[0], logs[1], logs[2]
+        )),
+        "{table}"
+    );
+    assert!(merge(&shards, "markdown").starts_with("### gradaudit merge of 4 shards ("));
+    // An audit's page is still an audit's.
+    let (code, html, err) = run(&["audit", &logs[0], "--resamples", "100", "--format", "html"]);
+    assert_eq!(code, 0, "{err}");
+    assert_eq!(kicker(&html).0, format!("gradaudit audit of {}", logs[0]));
 }
