@@ -173,6 +173,10 @@ pub struct InspectArgs {
     /// layers, parameter count, normalisation and which tensors form theta)
     #[arg(long, value_name = "FILE")]
     pub policy: Option<String>,
+
+    /// Write the summary here (atomically, checked before the log is read) instead of stdout
+    #[arg(long, value_name = "FILE", default_value = "-")]
+    pub out: String,
 }
 
 #[derive(Debug, Clone, Copy, ValueEnum)]
@@ -691,6 +695,13 @@ fn run_inspect(a: InspectArgs) -> Result<()> {
             a.gamma
         )));
     }
+    // Like every command's --out: checked before the log is read, never one of the inputs.
+    let paths = a.log.paths();
+    let mut inputs: Vec<&str> = paths.iter().map(String::as_str).collect();
+    inputs.extend(a.policy.as_deref());
+    let mut outputs = output::Outputs::new(&inputs);
+    let out = outputs.add("--out", &a.out)?;
+    output::test_pause("checked");
     let critic = if a.fit_value {
         let fit = crate::critic::FitConfig {
             gamma: a.gamma,
@@ -720,8 +731,7 @@ fn run_inspect(a: InspectArgs) -> Result<()> {
         InspectFormat::Json => report::inspect::render_json(&report),
         InspectFormat::Html => report::html::inspect(&report),
     };
-    output::write("-", &text)?;
-    Ok(())
+    outputs.write(vec![(out, text)])
 }
 
 /// Runs a parsed command line; returns the exit code.
@@ -739,11 +749,13 @@ pub fn run(cli: Cli) -> Result<u8> {
 }
 
 impl AuditOptions {
-    /// The input files of an audit that no output may replace (the log, the policy).
+    /// The input files of an audit that no output may replace (the log, the policy, the value
+    /// network).
     fn inputs<'a>(&'a self, log: &'a LogArgs) -> Vec<&'a str> {
         let mut inputs = vec![log.log.as_str()];
         inputs.extend(log.more_logs.iter().map(String::as_str));
         inputs.extend(self.policy.as_deref());
+        inputs.extend(self.value_net.as_deref());
         inputs
     }
 }

@@ -429,3 +429,138 @@ fn the_merge_page_says_it_merges_shards() {
     assert_eq!(code, 0, "{err}");
     assert_eq!(kicker(&html).0, format!("gradaudit audit of {}", logs[0]));
 }
+
+/// The permission bits of a file.
+fn mode(path: &std::path::Path) -> u32 {
+    use std::os::unix::fs::PermissionsExt;
+    std::fs::metadata(path).unwrap().permissions().mode() & 0o7777
+}
+
+/// `inspect --out FILE` writes what stdout would show, through a temporary file (none left),
+/// keeps an existing file's mode, writes through a symbolic link, and refuses what every
+/// `--out` refuses, before the log is read: a folder, an empty path, a missing folder, a FIFO,
+/// a dangling link, the log itself (also by another name) and the policy file. `audit` now also
+/// refuses to write over its `--value-net` description.
+#[test]
+fn inspect_writes_its_summary_with_out_like_the_other_commands() {
+    use std::os::unix::fs::{FileTypeExt, PermissionsExt};
+    let dir = Dir::new("leftover_inspect_out");
+    let rover = demo("docking_rover.csv");
+    for format in ["table", "json", "html"] {
+        let (code, shown, err) = run(&["inspect", &rover, "--format", format]);
+        assert_eq!(code, 0, "{err}");
+        let out = dir.path(&format!("summary.{format}"));
+        let out = out.to_str().unwrap();
+        let (code, stdout, err) = run(&["inspect", &rover, "--format", format, "--out", out]);
+        assert_eq!(code, 0, "{err}");
+        assert_eq!(stdout, "", "the summary goes to the file only");
+        assert_eq!(std::fs::read_to_string(out).unwrap(), shown, "{format}");
+    }
+    let existing = dir.write("old.txt", b"old\n");
+    std::fs::set_permissions(&existing, std::fs::Permissions::from_mode(0o640)).unwrap();
+    let (code, _, err) = run(&["inspect", &rover, "--out", &existing]);
+    assert_eq!(code, 0, "{err}");
+    assert_eq!(mode(std::path::Path::new(&existing)), 0o640);
+    assert!(
+        std::fs::read_to_string(&existing)
+            .unwrap()
+            .contains("episodes")
+    );
+    let link = dir.path("link.txt");
+    std::os::unix::fs::symlink("old.txt", &link).unwrap();
+    let (code, _, err) = run(&[
+        "inspect",
+        &rover,
+        "--format",
+        "json",
+        "--out",
+        link.to_str().unwrap(),
+    ]);
+    assert_eq!(code, 0, "{err}");
+    assert!(
+        std::fs::symlink_metadata(&link)
+            .unwrap()
+            .file_type()
+            .is_symlink()
+    );
+    assert!(std::fs::read_to_string(&existing).unwrap().starts_with('{'));
+    let leftovers: Vec<String> = std::fs::read_dir(dir.tmp.path())
+        .unwrap()
+        .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
+        .filter(|n| n.starts_with(".gradaudit-") || n.contains(".tmp"))
+        .collect();
+    assert!(leftovers.is_empty(), "{leftovers:?}");
+
+    // Refusals: all before the (missing) log is opened, so its name never shows.
+    let missing_log = dir.path("no-such-log.csv").to_string_lossy().into_owned();
+    let folder = dir.path("reports");
+    std::fs::create_dir(&folder).unwrap();
+    let fifo = dir.path("pipe");
+    assert!(
+        std::process::Command::new("mkfifo")
+            .arg(&fifo)
+            .status()
+            .unwrap()
+            .success()
+    );
+    let dangling = dir.path("gone.txt");
+    std::os::unix::fs::symlink("missing.txt", &dangling).unwrap();
+    let in_missing = dir.path("missing-folder/s.txt");
+    let cases = [
+        (folder.to_str().unwrap(), "is a folder"),
+        ("", "the path is empty"),
+        (in_missing.to_str().unwrap(), "missing-folder"),
+        (fifo.to_str().unwrap(), "is a FIFO"),
+        (dangling.to_str().unwrap(), "symbolic link"),
+    ];
+    for (out, wanted) in cases {
+        let (code, _, err) = run(&["inspect", &missing_log, "--out", out]);
+        assert_eq!(code, 2, "{out}: {err}");
+        let named = if out.is_empty() {
+            "--out:".to_string()
+        } else {
+            format!("--out {out}")
+        };
+        assert!(err.contains(&named) && err.contains(wanted), "{out}: {err}");
+        assert!(
+            !err.contains("no-such-log"),
+            "{out}: read the log first: {err}"
+        );
+    }
+    assert!(
+        std::fs::symlink_metadata(&fifo)
+            .unwrap()
+            .file_type()
+            .is_fifo()
+    );
+    assert!(!dir.path("missing.txt").exists());
+
+    // Never over an input: the log (also through a link), the policy, a value network.
+    let original = std::fs::read(&rover).unwrap();
+    let log = dir.write("log.csv", &original);
+    let alias = dir.path("alias.csv");
+    std::os::unix::fs::symlink("log.csv", &alias).unwrap();
+    let policy_text = std::fs::read(demo("docking_rover.policy.json")).unwrap();
+    let policy = dir.write("policy.json", &policy_text);
+    for out in [log.as_str(), alias.to_str().unwrap(), policy.as_str()] {
+        let (code, _, err) = run(&["inspect", &log, "--policy", &policy, "--out", out]);
+        assert_eq!(code, 2, "{out}: {err}");
+        assert!(err.contains("the input"), "{out}: {err}");
+    }
+    let value = dir.write(
+        "value.json",
+        br#"{"schema": "gradaudit.policy/1", "family": "mlp_value", "features": ["obs_0"],
+ "tensors": {"w": [[0.5]], "b": [0.25]},
+ "layers": [{"weight": "w", "bias": "b", "activation": "identity"}]}"#,
+    );
+    let (code, _, err) = run(&["audit", &log, "--value-net", &value, "--out", &value]);
+    assert_eq!(code, 2, "{err}");
+    assert!(err.contains("the input"), "{err}");
+    assert_eq!(std::fs::read(&log).unwrap(), original);
+    assert_eq!(std::fs::read(&policy).unwrap(), policy_text);
+    assert!(
+        std::fs::read_to_string(&value)
+            .unwrap()
+            .contains("mlp_value")
+    );
+}
