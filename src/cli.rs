@@ -109,7 +109,8 @@ pub struct LogArgs {
 
     /// Read role ROLE from column HEADER (repeatable). Roles: episode, step, reward,
     /// terminated, truncated, done, value, next_value, q, logp; and score, obs, act, next_obs
-    /// for a list column of a Parquet or Arrow file
+    /// for a list column of a Parquet or Arrow file. Without it, episode_id and rewards are
+    /// read when the header has no episode or reward column
     #[arg(long = "col", value_name = "ROLE=HEADER")]
     pub columns: Vec<String>,
 
@@ -247,7 +248,8 @@ pub struct AuditOptions {
     pub scores_from: Option<ScoresFromArg>,
 
     /// Fit V(s_t) by ridge regression on obs features and time, cross-fitted by episode, and use
-    /// it instead of the log's value column (reads the log twice)
+    /// it instead of the log's value column and as the bootstrap value of truncated episodes
+    /// without next_value (reads the log twice)
     #[arg(long)]
     pub fit_value: bool,
 
@@ -271,7 +273,9 @@ pub struct AuditOptions {
     pub project: String,
 
     /// Compute V(s_t) from this value network (description JSON, family mlp_value, with its
-    /// safetensors weights) for the value-based estimators, instead of a value column
+    /// safetensors weights) for the value-based estimators, instead of a value column; also
+    /// the bootstrap value of truncated episodes (at the logged next observation, else the
+    /// last one)
     #[arg(long, value_name = "FILE")]
     pub value_net: Option<String>,
 

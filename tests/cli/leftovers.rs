@@ -631,3 +631,104 @@ fn open_episodes_charge_their_next_observation() {
     let j: serde_json::Value = serde_json::from_str(&out).unwrap();
     assert_eq!(j["episodes"], 1500);
 }
+
+/// The rover demo with its `episode` and `reward` headers renamed.
+fn renamed_rover(dir: &Dir, file: &str, episode: &str, reward: &str) -> String {
+    let text = std::fs::read_to_string(demo("docking_rover.csv")).unwrap();
+    let (header, rest) = text.split_once('\n').unwrap();
+    let header = header
+        .replacen("episode,", &format!("{episode},"), 1)
+        .replacen(",reward,", &format!(",{reward},"), 1);
+    dir.write(file, format!("{header}\n{rest}").as_bytes())
+}
+
+/// Headers `rewards` and `episode_id` are read as the reward and the episode id when they are
+/// the only candidates: the audit equals the demo's (every figure, whatever the file name),
+/// and inspect says they were found under another name. With both `reward` and `rewards`
+/// (or `episode` and `episode_id`) neither is guessed: exit 2 naming both columns and the
+/// two --col choices; naming one with --col reads it.
+#[test]
+fn rewards_and_episode_id_headers_are_read_when_unambiguous() {
+    let dir = Dir::new("leftover_aliases");
+    let aliased = renamed_rover(&dir, "aliased.csv", "episode_id", "rewards");
+    let audit = |log: &str, extra: &[&str]| {
+        let mut args = vec![
+            "audit",
+            log,
+            "--estimators",
+            "rtg,gae:0.9",
+            "--resamples",
+            "200",
+            "--format",
+            "json",
+        ];
+        args.extend(extra);
+        let mut j = crate::util::run_json(&args);
+        j["input"]["file"] = serde_json::Value::Null;
+        j
+    };
+    let rover = demo("docking_rover.csv");
+    assert_eq!(audit(&aliased, &[]), audit(&rover, &[]));
+    let j = crate::util::run_json(&["inspect", &aliased, "--format", "json"]);
+    let roles: Vec<(String, String, String)> = j["columns"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .filter(|a| a["role"] == "episode" || a["role"] == "reward")
+        .map(|a| {
+            (
+                a["role"].as_str().unwrap().to_string(),
+                a["headers"][0].as_str().unwrap().to_string(),
+                a["found"].as_str().unwrap().to_string(),
+            )
+        })
+        .collect();
+    let want = |r: &str, h: &str| (r.to_string(), h.to_string(), "synonym".to_string());
+    assert_eq!(
+        roles,
+        [want("episode", "episode_id"), want("reward", "rewards")]
+    );
+
+    // Two candidates: the header keeps `reward` and gains `rewards` (a copy of `value`).
+    let text = std::fs::read_to_string(&rover).unwrap();
+    let (header, _) = text.split_once('\n').unwrap();
+    let both = dir.write(
+        "both.csv",
+        text.replacen(header, &header.replacen(",value,", ",rewards,", 1), 1)
+            .as_bytes(),
+    );
+    let (code, _, err) = run(&["inspect", &both]);
+    assert_eq!(code, 2, "{err}");
+    assert!(
+        err.contains(
+            "both.csv, line 1: the header has 'reward' (column 3) and 'rewards' (column 6) \
+             for role reward: either could be it, so neither is read by default"
+        ) && err.contains("name the one to read: --col reward=reward or --col reward=rewards"),
+        "{err}"
+    );
+    // Naming one reads it (`rewards` is then unused; the log has lost its value column, so
+    // gae:0.9 is skipped and rtg, which needs no value, is the demo's).
+    let chosen = audit(&both, &["--col", "reward=reward"]);
+    let rtg = |j: &serde_json::Value| {
+        j["estimators"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .find(|e| e["name"] == "rtg")
+            .cloned()
+            .unwrap()
+    };
+    assert_eq!(rtg(&chosen), rtg(&audit(&rover, &[])));
+    assert_eq!(chosen["skipped"][0]["name"], "gae:0.9");
+    let ids = dir.write(
+        "ids.csv",
+        text.replacen(header, &header.replacen(",value,", ",episode_id,", 1), 1)
+            .as_bytes(),
+    );
+    let (code, _, err) = run(&["inspect", &ids]);
+    assert_eq!(code, 2, "{err}");
+    assert!(
+        err.contains("'episode' (column 1) and 'episode_id' (column 6) for role episode"),
+        "{err}"
+    );
+}
