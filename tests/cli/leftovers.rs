@@ -597,8 +597,9 @@ fn many_open_episodes(dir: &Dir, next: bool) -> String {
 
 /// The next observation each open episode holds is charged to the memory ledger with the rest
 /// of the episode. Per open one-step episode: its step, 8 x (256 obs + 1 score + 5) = 2,096
-/// bytes, its table entry and id (a few hundred), and now its next observation, 8 x 256 =
-/// 2,048 bytes: 1,500 open episodes hold about 3.5 MB without it and 6.6 MB with it. At
+/// bytes, its table entry and id (about 420), and now its next observation, 8 x 256 = 2,048
+/// bytes: 1,500 open episodes hold about 3.8 MB without it and 6.9 MB with it (the messages
+/// at `--max-memory 3` give 2.52 and 4.57 kB per open episode). At
 /// `--max-memory 5` the log without next observations fits, and the one with them, which fit
 /// before (the binary without this charge read it at 4 MB, exit 0), is refused naming the
 /// open episodes and their next observations; at 8 MB it fits.
