@@ -480,9 +480,45 @@ fn start<'a>(ctx: Ctx<'a>, w: &Wire) -> Result<(Builder<'a>, Vec<usize>)> {
     ))
 }
 
+/// Parses the description strictly (serde's message keeps its line); when the error is one
+/// of a `layers` entry's own (an unknown field, a wrong type), the entry is named too.
+fn parse_wire(ctx: &Ctx, text: &str) -> Result<Wire> {
+    ctx.parse(text).map_err(|mut err| {
+        if let (Some(label), crate::error::Error::Input(e)) = (bad_layer(text), &mut err)
+            && e.message.contains(&label.1)
+        {
+            e.message = e.message.replacen(
+                "invalid policy file: ",
+                &format!("invalid policy file: {}: ", label.0),
+                1,
+            );
+        }
+        err
+    })
+}
+
+/// The first `layers` entry that does not read as a layer on its own, and serde's message
+/// for it (without a position), when the file is JSON with a `layers` list.
+fn bad_layer(text: &str) -> Option<(String, String)> {
+    let v: serde_json::Value = serde_json::from_str(text).ok()?;
+    let layers = v.get("layers")?.as_array()?;
+    layers.iter().enumerate().find_map(|(i, l)| {
+        serde_json::from_value::<LayerWire>(l.clone())
+            .err()
+            .map(|e| {
+                let named = l
+                    .get("weight")
+                    .and_then(|w| w.as_str())
+                    .map_or(String::new(), |w| format!(" (\"weight\": \"{w}\")"));
+                let label = format!("\"layers\" entry {} of {}{named}", i + 1, layers.len());
+                (label, e.to_string())
+            })
+    })
+}
+
 /// Parses an `mlp` actor description.
 pub fn build(ctx: Ctx, text: &str) -> Result<Built> {
-    let w: Wire = ctx.parse(text)?;
+    let w = parse_wire(&ctx, text)?;
     let hw = w
         .head
         .as_ref()
@@ -533,7 +569,7 @@ impl ValueNet {
                 "a value network's family is 'mlp_value', not '{family}'"
             )));
         }
-        let w: Wire = ctx.parse(text)?;
+        let w = parse_wire(&ctx, text)?;
         if w.head.is_some() || w.theta.is_some() || w.actions.is_some() || w.action.is_some() {
             return Err(ctx.bad(
                 "an mlp_value network has no head, theta or actions: its last layer is the value",

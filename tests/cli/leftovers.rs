@@ -40,6 +40,21 @@ fn a_layer_without_a_required_field_is_named_with_its_file_and_index() {
     );
     assert!(err.contains(&want), "{err}");
     assert!(!err.contains("missing field"), "{err}");
+    // A misspelt field or a wrong type keeps serde's line and names the entry too.
+    let typo = std::fs::read_to_string(&value).unwrap().replace(
+        r#"{"weight": "w2"}"#,
+        r#"{"weight": "w2", "activaton": "identity"}"#,
+    );
+    let typo = dir.write("typo.json", typo.as_bytes());
+    let (code, err) = audit_with("--value-net", &typo);
+    assert_eq!(code, 2, "{err}");
+    assert!(
+        err.contains(
+            "typo.json, line 3: invalid policy file: \"layers\" entry 2 of 2 (\"weight\": \"w2\"): \
+             unknown field `activaton`"
+        ),
+        "{err}"
+    );
 
     let actor = |layers: &str, head_mean: &str, normalize: &str| {
         format!(
