@@ -837,7 +837,7 @@ fn two_candidates(role: Role, hits: &[(usize, usize)], headers: &[String], file:
             column: None,
         },
         format!(
-            "the header has {} for role {}: either could be it, so neither is read by default",
+            "the log has {} for role {}: either could be it, so neither is read by default",
             named.join(" and "),
             role.key()
         ),

@@ -717,7 +717,7 @@ fn rewards_and_episode_id_headers_are_read_when_unambiguous() {
     assert_eq!(code, 2, "{err}");
     assert!(
         err.contains(
-            "both.csv, line 1: the header has 'reward' (column 3) and 'rewards' (column 6) \
+            "both.csv, line 1: the log has 'reward' (column 3) and 'rewards' (column 6) \
              for role reward: either could be it, so neither is read by default"
         ) && err.contains("name the one to read: --col reward=reward or --col reward=rewards"),
         "{err}"
@@ -745,6 +745,64 @@ fn rewards_and_episode_id_headers_are_read_when_unambiguous() {
     assert_eq!(code, 2, "{err}");
     assert!(
         err.contains("'episode' (column 1) and 'episode_id' (column 6) for role episode"),
+        "{err}"
+    );
+}
+
+/// The same rule for a Parquet file, whose roles come from the same resolution: `episode_id`
+/// and `rewards` are read alone, refused together with `reward`.
+#[test]
+fn parquet_rewards_and_episode_id_columns_follow_the_same_rule() {
+    use arrow_array::{ArrayRef, BooleanArray, Float64Array, StringArray};
+    use std::sync::Arc;
+    let dir = Dir::new("leftover_aliases_parquet");
+    let write = |file: &str, with_reward: bool| {
+        let mut cols: Vec<(&str, ArrayRef)> = vec![
+            (
+                "episode_id",
+                Arc::new(StringArray::from(vec!["a", "a", "b", "b", "c", "c"])),
+            ),
+            (
+                "rewards",
+                Arc::new(Float64Array::from(vec![1.0, 2.0, 3.0, 1.0, 2.0, 2.0])),
+            ),
+            (
+                "terminated",
+                Arc::new(BooleanArray::from(vec![
+                    false, true, false, true, false, true,
+                ])),
+            ),
+            (
+                "score_0",
+                Arc::new(Float64Array::from(vec![0.1, 0.3, 0.5, -0.2, 0.1, 0.4])),
+            ),
+        ];
+        if with_reward {
+            cols.push(("reward", Arc::new(Float64Array::from(vec![0.0; 6]))));
+        }
+        let batch = crate::util::named_batch(cols);
+        let path = dir.path(file);
+        let mut w = parquet::arrow::ArrowWriter::try_new(
+            std::fs::File::create(&path).unwrap(),
+            batch.schema(),
+            None,
+        )
+        .unwrap();
+        w.write(&batch).unwrap();
+        w.close().unwrap();
+        path.to_string_lossy().into_owned()
+    };
+    let alone = write("alone.parquet", false);
+    let j = crate::util::run_json(&["inspect", &alone, "--format", "json"]);
+    assert_eq!(j["episodes"], 3);
+    // Returns 3, 4, 4: the rewards column was read.
+    assert_eq!(j["episode_return"]["max"], 4.0);
+    assert_eq!(j["episode_return"]["min"], 3.0);
+    let both = write("both.parquet", true);
+    let (code, _, err) = run(&["inspect", &both]);
+    assert_eq!(code, 2, "{err}");
+    assert!(
+        err.contains("'reward' (column 5) and 'rewards' (column 2) for role reward"),
         "{err}"
     );
 }
