@@ -51,6 +51,9 @@ pub struct AuditConfig {
     pub multiplicity: stats::Multiplicity,
     /// How episodes are resampled (the multinomial bootstrap, or the streamed Poisson one).
     pub resampling: Resampling,
+    /// Whether each per-episode row gets its mse interval (stats/mse.rs): the
+    /// gate asks for it when a rule reads mse, snr or ess. Multinomial resampling only.
+    pub mse_intervals: bool,
 }
 
 /// The bootstrap scheme of an audit.
@@ -100,6 +103,7 @@ impl Default for AuditConfig {
             bias_level: stats::BIAS_LEVEL,
             multiplicity: stats::Multiplicity::Holm,
             resampling: Resampling::Multinomial,
+            mse_intervals: false,
         }
     }
 }
@@ -802,13 +806,40 @@ pub fn run(reader: LogReader, cfg: &AuditConfig) -> Result<AuditReport> {
         let iv = significance::interval(&data, &prep.plan, k, prep.reference, cfg);
         (iv, None)
     };
-    Ok(report(
-        &layout,
-        cfg,
-        (data.input.clone(), warnings),
-        stats,
-        &scale,
-    ))
+    let mut out = report(&layout, cfg, (data.input.clone(), warnings), stats, &scale);
+    // Sketched or projected figures are rescaled in report(); the interval would not be.
+    if cfg.mse_intervals && !layout.per_coord() {
+        mse_intervals(&mut out, &data, &prep, cfg);
+    }
+    Ok(out)
+}
+
+/// Gives each per-episode row with a defined mse its mse interval (stats/mse.rs);
+/// the influence columns of every estimator share one pass of the bootstrap's counts.
+fn mse_intervals(report: &mut AuditReport, data: &Collected, prep: &Prepared, cfg: &AuditConfig) {
+    let plan = &prep.plan;
+    let names: Vec<String> = plan.estimators.iter().map(|e| e.to_string()).collect();
+    let defined = |k: usize| {
+        let name = &names[k];
+        report
+            .estimators
+            .iter()
+            .any(|r| &r.name == name && r.mse.is_some())
+    };
+    let draws: Vec<_> = (0..plan.estimators.len())
+        .map(|k| defined(k).then(|| significance::mse_draws(data, plan, k, prep.reference, cfg))?)
+        .collect();
+    let seed = cfg.seed;
+    let spreads = stats::mse::spreads(&draws, cfg.confidence, |u| {
+        resample::weighted_means(u, cfg.resamples, |b, w| {
+            resample::bootstrap_counts(seed, b as u64, w)
+        })
+    });
+    for (name, (_, iv)) in names.iter().zip(spreads) {
+        if let Some(row) = report.estimators.iter_mut().find(|r| &r.name == name) {
+            row.mse_interval = iv;
+        }
+    }
 }
 
 /// The report model from an audit's statistics, whichever resampler produced them.

@@ -215,7 +215,8 @@ pub struct AuditOptions {
     #[arg(long, default_value_t = DEFAULT_SEED)]
     pub seed: u64,
 
-    /// Confidence level of the percentile intervals
+    /// Confidence level of every interval (percentile, BCa, jackknife or studentised by figure:
+    /// README, "Statistics")
     #[arg(long, default_value_t = 0.95)]
     pub confidence: f64,
 

@@ -314,38 +314,47 @@ pub fn run(reader: LogReader, cfg: &SweepConfig) -> Result<SweepReport> {
         stats::summarise(&plan, 0, &point, replicates.view(), halves.view(), &scfg);
 
     let refs = ReferenceFigures::of(&stats[0], &signal);
-    let points: Vec<SweepPoint> = cfg
+    // The report's row rules apply: figures derived from overflowed ones are undefined.
+    let rows: Vec<EstimatorRow> = cfg
         .grid
         .iter()
         .enumerate()
-        .map(|(i, g)| {
-            let k = i + 1;
-            // The report's row rules apply: figures derived from overflowed ones are undefined.
-            let row = EstimatorRow::new(g.label.clone(), false, stats[k].clone(), &refs);
-            let (mse_se, mse_interval) = row.mse.map_or((None, None), |_| {
-                mse_spread(&plan, k, &replicates, data.contrib.view(), cfg)
-            });
-            SweepPoint {
-                label: g.label.clone(),
-                value: g.value.is_finite().then_some(g.value),
-                estimator: g.estimator.to_string(),
-                gamma: g.gamma,
-                bias_sq: row.bias_sq,
-                bias_detected: row.bias_detected,
-                variance: row.variance,
-                mse: row.mse,
-                mse_se,
-                mse_interval,
-                snr: row.snr,
-                ess: row.ess,
-                episodes_for_snr: row.episodes_for_snr,
-                bias_limited: row.bias_limited,
-                notes: row
-                    .notes
-                    .into_iter()
-                    .filter(|n| !n.starts_with("cosine_half"))
-                    .collect(),
-            }
+        .map(|(i, g)| EstimatorRow::new(g.label.clone(), false, stats[i + 1].clone(), &refs))
+        .collect();
+    let draws: Vec<Option<crate::stats::mse::Draws>> = rows
+        .iter()
+        .enumerate()
+        .map(|(i, row)| {
+            row.mse?;
+            mse::draws(&plan, i + 1, &replicates, data.contrib.view())
+        })
+        .collect();
+    let spreads = mse::spreads(&draws, data.contrib.view(), cfg)?;
+    let points: Vec<SweepPoint> = cfg
+        .grid
+        .iter()
+        .zip(rows)
+        .zip(spreads)
+        .map(|((g, row), (mse_se, mse_interval))| SweepPoint {
+            label: g.label.clone(),
+            value: g.value.is_finite().then_some(g.value),
+            estimator: g.estimator.to_string(),
+            gamma: g.gamma,
+            bias_sq: row.bias_sq,
+            bias_detected: row.bias_detected,
+            variance: row.variance,
+            mse: row.mse,
+            mse_se,
+            mse_interval,
+            snr: row.snr,
+            ess: row.ess,
+            episodes_for_snr: row.episodes_for_snr,
+            bias_limited: row.bias_limited,
+            notes: row
+                .notes
+                .into_iter()
+                .filter(|n| !n.starts_with("cosine_half"))
+                .collect(),
         })
         .collect();
     let choice = choose(&points, cfg.over);
@@ -371,87 +380,6 @@ pub fn run(reader: LogReader, cfg: &SweepConfig) -> Result<SweepReport> {
         choice,
         warnings,
     })
-}
-
-/// Bootstrap standard error and BCa interval (Efron 1987; [`stats::intervals`]) of point k's
-/// MSE estimate, from each replicate's own MSE estimate and the leave-one-episode-out
-/// (jackknife) estimates; None when fewer than two replicates, or when a replicate's estimate
-/// overflowed f64 (a spread of overflowed figures is undefined).
-///
-/// Why BCa and not the percentile interval shifted by the replicates' excess mean (used
-/// before): the MSE estimate is a clamped, right-skewed quadratic form whose replicates also
-/// sit above it by about V_d; a shift fixes the mean but not the skew, and the shifted interval
-/// covered the true MSE at gamma = 1 in 76.5% of 400 simulated logs of 400 episodes at 95%
-/// (src/audit/coverage.rs, regime `moderate`); BCa's z0 corrects the median offset and
-/// the jackknife acceleration the skew: 83.3% there, 60.5% -> 70.0% at N = 100. Heavy-tailed
-/// per-episode gradients still leave it short of 95% (README, "Coverage of the intervals").
-fn mse_spread(
-    plan: &Plan,
-    k: usize,
-    replicates: &ndarray::Array2<f64>,
-    contrib: ndarray::ArrayView2<f64>,
-    cfg: &SweepConfig,
-) -> (Option<f64>, Option<Interval>) {
-    let n = contrib.nrows();
-    // The MSE estimate inside each replicate, from its exact within-replicate variances
-    // (see contrib.rs): bias_sq_b = max(0, ||d_b||^2 - V_d,b), mse_b = bias_sq_b + V_k,b.
-    let mses: Vec<f64> = replicates
-        .outer_iter()
-        .map(|row| {
-            let row = row.as_slice().expect("rows are contiguous");
-            replicate_mse(plan, k, 0, row, n)
-        })
-        .collect();
-    if mses.len() < 2 || mses.iter().any(|x| !x.is_finite()) {
-        return (None, None);
-    }
-    let m = mses.iter().sum::<f64>() / mses.len() as f64;
-    let var = mses.iter().map(|x| (x - m).powi(2)).sum::<f64>() / (mses.len() - 1) as f64;
-    // The same functional at the whole log and with each episode left out (the batch size n
-    // stays fixed: it is a parameter of the figure, not of the data).
-    let total = contrib.sum_axis(ndarray::Axis(0)).to_vec();
-    let at = |sum: &[f64], count: f64| {
-        let mean: Vec<f64> = sum.iter().map(|x| x / count).collect();
-        replicate_mse(plan, k, 0, &mean, n)
-    };
-    let estimate = at(&total, n as f64);
-    let jackknife: Vec<f64> = contrib
-        .outer_iter()
-        .map(|row| {
-            let loo: Vec<f64> = total.iter().zip(row).map(|(t, x)| t - x).collect();
-            at(&loo, n as f64 - 1.0)
-        })
-        .collect();
-    let iv = stats::intervals::bca(mses, estimate, &jackknife, cfg.audit.confidence).map(|iv| {
-        Interval {
-            low: at_least_0(iv.low),
-            high: at_least_0(iv.high),
-        }
-    });
-    (
-        crate::report::finite(var.sqrt()),
-        iv.and_then(crate::report::finite_interval),
-    )
-}
-
-/// max(x, 0) that keeps a NaN (f64::max(NaN, 0) is 0, which would hide an overflow).
-fn at_least_0(x: f64) -> f64 {
-    if x < 0.0 { 0.0 } else { x }
-}
-
-/// bias_sq + variance of estimator k as estimated inside one replicate (mean row `row`).
-fn replicate_mse(plan: &Plan, k: usize, reference: usize, row: &[f64], n: usize) -> f64 {
-    let d = plan.d;
-    let (mut gk, mut gr) = (vec![0.0; d], vec![0.0; d]);
-    plan.gradient(k, row, &mut gk);
-    plan.gradient(reference, row, &mut gr);
-    let (q, r) = plan.moments(k, row).expect("sweep plans carry moments");
-    let sq: f64 = gk.iter().map(|x| x * x).sum();
-    let dist: f64 = gk.iter().zip(&gr).map(|(a, b)| (a - b).powi(2)).sum();
-    let nf = n as f64;
-    let var_k = at_least_0((q - sq) / nf);
-    let var_d = at_least_0((r - dist) / nf);
-    at_least_0(dist - var_d) + var_k
 }
 
 /// Whether a grid point sits where its parameter ends (lambda or gamma 0 or 1, n = 1 or full).
@@ -534,5 +462,6 @@ pub fn choose(points: &[SweepPoint], over: Over) -> Choice {
     }
 }
 
+mod mse;
 #[cfg(test)]
 mod tests;

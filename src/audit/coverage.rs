@@ -422,6 +422,7 @@ fn audit_config(study: &Study, seed: u64) -> AuditConfig {
         splits: study.splits,
         confidence: study.confidence,
         seed,
+        mse_intervals: true,
         ..AuditConfig::default()
     }
 }

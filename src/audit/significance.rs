@@ -99,22 +99,8 @@ pub fn interval(
     };
     let (gk, _) = source.bootstrap(k);
     let (gr, _) = source.bootstrap(reference);
-    let seed = cfg.seed;
     let cols = [start + 2 * k, start + 2 * reference];
-    // Two moment columns need not be adjacent: one weighted-mean pass over the span.
-    let (lo, hi) = (cols[0].min(cols[1]), cols[0].max(cols[1]) + 1);
-    let (moments, _) = resample::weighted_gradients(
-        contrib,
-        cfg.resamples,
-        lo..hi,
-        2,
-        |b, w| resample::bootstrap_counts(seed, b as u64, w),
-        |mean, out| {
-            out[0] = mean[cols[0] - lo];
-            out[1] = mean[cols[1] - lo];
-            false
-        },
-    );
+    let moments = resampled_columns(contrib, &cols, cfg);
     let reps: Vec<f64> = (0..cfg.resamples)
         .map(|b| {
             let (gk, gr) = (gk.row(b).to_vec(), gr.row(b).to_vec());
@@ -145,6 +131,84 @@ pub fn interval(
         })
         .collect();
     noise::interval(reps, estimate, &jack, cfg.confidence)
+}
+
+/// The replicates' weighted means of the columns `cols` (a B x cols.len() matrix), with the
+/// bootstrap's own counts: one weighted-mean pass over the span of the columns.
+fn resampled_columns(
+    contrib: ndarray::ArrayView2<f64>,
+    cols: &[usize],
+    cfg: &AuditConfig,
+) -> ndarray::Array2<f64> {
+    let seed = cfg.seed;
+    let lo = *cols.iter().min().expect("at least one column");
+    let hi = *cols.iter().max().expect("at least one column") + 1;
+    let (means, _) = resample::weighted_gradients(
+        contrib,
+        cfg.resamples,
+        lo..hi,
+        cols.len(),
+        |b, w| resample::bootstrap_counts(seed, b as u64, w),
+        |mean, out| {
+            for (o, &c) in out.iter_mut().zip(cols) {
+                *o = mean[c - lo];
+            }
+            false
+        },
+    );
+    means
+}
+
+/// Per-episode estimator k's MSE draws against the reference (stats/mse.rs), from the
+/// multinomial bootstrap's replicate gradients and moments and the episode jackknife; None for
+/// a batch-dependent estimator (no per-episode moments) or where a figure overflowed.
+pub fn mse_draws(
+    data: &Collected,
+    plan: &Plan,
+    k: usize,
+    reference: usize,
+    cfg: &AuditConfig,
+) -> Option<crate::stats::mse::Draws> {
+    use crate::stats::mse::{Draws, Parts};
+    let start = plan.moment_start()?;
+    plan.moments(k, &vec![0.0; plan.width()])?;
+    let contrib = data.contrib.view();
+    let n = contrib.nrows();
+    let source = Resampler {
+        plan,
+        contrib,
+        seed: cfg.seed,
+        resamples: cfg.resamples,
+        splits: cfg.splits,
+    };
+    let (gk, _) = source.bootstrap(k);
+    let (gr, _) = source.bootstrap(reference);
+    let cols = [start + 2 * k, start + 2 * k + 1];
+    let moments = resampled_columns(contrib, &cols, cfg);
+    let reps = (0..cfg.resamples).map(|b| {
+        let m = (moments[[b, 0]], moments[[b, 1]]);
+        Parts::new(&gk.row(b).to_vec(), &gr.row(b).to_vec(), m, n)
+    });
+    let (ck, cr) = (plan.columns(k), plan.columns(reference));
+    let at = |mean: &[f64]| {
+        Parts::new(
+            &mean[ck.clone()],
+            &mean[cr.clone()],
+            (mean[cols[0]], mean[cols[1]]),
+            n,
+        )
+    };
+    let total: Vec<f64> = contrib.sum_axis(ndarray::Axis(0)).to_vec();
+    let whole = at(&total.iter().map(|x| x / n as f64).collect::<Vec<_>>());
+    let jack = contrib.outer_iter().map(|row| {
+        let loo: Vec<f64> = total
+            .iter()
+            .zip(row)
+            .map(|(t, x)| (t - x) / (n as f64 - 1.0))
+            .collect();
+        at(&loo)
+    });
+    Draws::new(whole, reps, jack)
 }
 
 /// The interval of B_simple for per-episode estimator k from replicate mean rows (the Poisson

@@ -642,3 +642,44 @@ fn ids_1_and_01_in_any_order_give_identical_output() {
     assert_eq!(a.signal_interval, b.signal_interval);
     assert_eq!(a.estimators, b.estimators);
 }
+
+// The gate's mse end is the larger of two upper bounds (gate::pessimistic): bias_sq's upper
+// end plus the point variance, and the row's studentised mse interval's upper end; snr's low
+// end divides the signal's low end by it. Asked for, every per-episode row gets an interval
+// around its own mse; not asked for, none does.
+#[test]
+fn gate_mse_end_is_the_larger_of_its_two_bounds() {
+    use crate::gate::{Stat, pessimistic};
+    let lq = crate::testkit::Lq {
+        k: -0.1,
+        sigma: 0.5,
+        h: 6,
+    };
+    let text = lq.log(300, 0.0, 3);
+    let plain = audit_text(&text, &cfg("rtg,total,rtg_discounted", 0.5));
+    assert!(plain.estimators.iter().all(|r| r.mse_interval.is_none()));
+    let asked = AuditConfig {
+        mse_intervals: true,
+        ..cfg("rtg,total,rtg_discounted", 0.5)
+    };
+    let report = audit_text(&text, &asked);
+    for r in &report.estimators {
+        let iv = r
+            .mse_interval
+            .expect("per-episode rows get an mse interval");
+        let mse = r.mse.expect("defined");
+        assert!(
+            iv.low > 0.0 && iv.low <= mse && mse <= iv.high,
+            "{}: {iv:?}",
+            r.name
+        );
+        let mut without = r.clone();
+        without.mse_interval = None;
+        let old = pessimistic(&report, &without, Stat::Mse).unwrap();
+        let end = pessimistic(&report, r, Stat::Mse).unwrap();
+        assert_eq!(end, old.max(iv.high), "{}", r.name);
+        let snr = pessimistic(&report, r, Stat::Snr).unwrap();
+        let s_lo = report.signal_interval.expect("a signal").low;
+        assert!((snr - s_lo / end).abs() <= 1e-12 * snr.abs(), "{}", r.name);
+    }
+}

@@ -172,10 +172,16 @@ pub fn pessimistic(report: &AuditReport, row: &EstimatorRow, stat: Stat) -> Meas
         Err(why) => return undefined(&why),
     };
     let n = report.input.episodes as f64;
+    // The larger of two upper bounds of mse, each at the end's level: bias_sq's upper end plus
+    // the point variance, and the high end of mse's own interval where the audit formed it
+    // (stats/mse.rs; it allows for the variance's error too). The larger is exceeded no more
+    // often than either: the first under-covers with a strong signal and heavy tails, the
+    // second near the optimum where bias_sq sits at its clamp (README, "Coverage").
+    let mse_hi = row.mse_interval.map_or(b_hi + v, |i| i.high.max(b_hi + v));
     let value = match stat {
-        Stat::Snr if s_lo > 0.0 => s_lo / (b_hi + v),
+        Stat::Snr if s_lo > 0.0 => s_lo / mse_hi,
         Stat::Snr => return undefined("the signal's lower bound is 0"),
-        Stat::Ess if b_hi + v > 0.0 => n * v_ref / (b_hi + v),
+        Stat::Ess if mse_hi > 0.0 => n * v_ref / mse_hi,
         Stat::Ess => return undefined("bias_sq's upper bound and the variance are both 0"),
         Stat::RelativeBias | Stat::RelativeVariance if s_lo <= 0.0 => {
             return undefined("the signal's lower bound is 0");
@@ -196,7 +202,7 @@ pub fn pessimistic(report: &AuditReport, row: &EstimatorRow, stat: Stat) -> Meas
         }
         Stat::BiasSq => b_hi,
         Stat::Variance => v,
-        Stat::Mse => b_hi + v,
+        Stat::Mse => mse_hi,
     };
     if value.is_finite() {
         Ok(value)
@@ -282,7 +288,12 @@ pub fn evaluate(report: &AuditReport, rules: &[Rule]) -> Vec<Outcome> {
 
 /// Adds the estimators that rules name to the audit's list, so a rule on, say, `gae:0.8` is
 /// checked even though the default set lacks it.
+/// Also asks for the mse intervals (stats/mse.rs) when a rule reads mse, snr or ess at its
+/// interval end.
 pub fn include_named(cfg: &mut crate::audit::AuditConfig, rules: &RuleSet) {
+    cfg.mse_intervals |= rules.rules.iter().any(|r| {
+        r.at == rules::At::Interval && matches!(r.stat, Stat::Mse | Stat::Snr | Stat::Ess)
+    });
     let named = rules.named_estimators();
     if named.is_empty() {
         return;

@@ -143,6 +143,7 @@ mod tests {
             episodes_for_snr: Some(3),
             bias_limited: false,
             noise_scale: None,
+            mse_interval: None,
             notes: vec![],
         }
     }

@@ -261,6 +261,10 @@ pub struct EstimatorRow {
     pub bias_limited: bool,
     /// Gradient noise scale B_simple = N variance / signal, in episodes.
     pub noise_scale: Option<f64>,
+    /// The interval of mse (stats/mse.rs), when the run asked for it (a gate with an mse, snr
+    /// or ess rule); absent from JSON otherwise.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub mse_interval: Option<Interval>,
     pub notes: Vec<String>,
 }
 
@@ -358,6 +362,7 @@ impl EstimatorRow {
             episodes_for_snr,
             bias_limited: signal && s.bias_limited,
             noise_scale: s.noise_scale.filter(|x| signal && x.is_finite()),
+            mse_interval: None,
             notes,
         }
     }

@@ -36,6 +36,7 @@
 
 pub mod bias_test;
 pub mod intervals;
+pub mod mse;
 pub mod multiplicity;
 pub mod noise;
 pub mod normal;

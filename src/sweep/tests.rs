@@ -2,6 +2,7 @@
 //! trade-off on a problem with a known critic error.
 
 use super::*;
+use crate::stats::mse::at_least_0;
 use crate::testkit::{Lq, reader};
 
 fn sweep(text: &str, over: Over, spec: &str, resamples: usize) -> SweepReport {
