@@ -436,6 +436,9 @@ where
     if cfg.fitted_values() {
         // The fitted critic or the value network gave every truncated end a bootstrap value.
         warnings.remove("truncated_without_bootstrap");
+    } else {
+        let hint = crate::critic::net::no_bootstrap_hint(reader.schema(), "pass");
+        warnings.amend(crate::critic::net::NO_BOOTSTRAP, &hint);
     }
     if let Some(c) = &clip {
         c.warn(&mut warnings);

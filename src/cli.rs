@@ -109,7 +109,8 @@ pub struct LogArgs {
 
     /// Read role ROLE from column HEADER (repeatable). Roles: episode, step, reward,
     /// terminated, truncated, done, value, next_value, q, logp; and score, obs, act, next_obs
-    /// for a list column of a Parquet or Arrow file
+    /// for a list column of a Parquet or Arrow file. Without it, episode_id and rewards are
+    /// read when the header has no episode or reward column
     #[arg(long = "col", value_name = "ROLE=HEADER")]
     pub columns: Vec<String>,
 
@@ -173,6 +174,10 @@ pub struct InspectArgs {
     /// layers, parameter count, normalisation and which tensors form theta)
     #[arg(long, value_name = "FILE")]
     pub policy: Option<String>,
+
+    /// Write the summary here (atomically, checked before the log is read) instead of stdout
+    #[arg(long, value_name = "FILE", default_value = "-")]
+    pub out: String,
 }
 
 #[derive(Debug, Clone, Copy, ValueEnum)]
@@ -244,7 +249,8 @@ pub struct AuditOptions {
     pub scores_from: Option<ScoresFromArg>,
 
     /// Fit V(s_t) by ridge regression on obs features and time, cross-fitted by episode, and use
-    /// it instead of the log's value column (reads the log twice)
+    /// it instead of the log's value column and as the bootstrap value of truncated episodes
+    /// without next_value (reads the log twice)
     #[arg(long)]
     pub fit_value: bool,
 
@@ -268,7 +274,9 @@ pub struct AuditOptions {
     pub project: String,
 
     /// Compute V(s_t) from this value network (description JSON, family mlp_value, with its
-    /// safetensors weights) for the value-based estimators, instead of a value column
+    /// safetensors weights) for the value-based estimators, instead of a value column; also
+    /// the bootstrap value of truncated episodes (at the logged next observation, else the
+    /// last one)
     #[arg(long, value_name = "FILE")]
     pub value_net: Option<String>,
 
@@ -692,6 +700,13 @@ fn run_inspect(a: InspectArgs) -> Result<()> {
             a.gamma
         )));
     }
+    // Like every command's --out: checked before the log is read, never one of the inputs.
+    let paths = a.log.paths();
+    let mut inputs: Vec<&str> = paths.iter().map(String::as_str).collect();
+    inputs.extend(a.policy.as_deref());
+    let mut outputs = output::Outputs::new(&inputs);
+    let out = outputs.add("--out", &a.out)?;
+    output::test_pause("checked");
     let critic = if a.fit_value {
         let fit = crate::critic::FitConfig {
             gamma: a.gamma,
@@ -721,8 +736,7 @@ fn run_inspect(a: InspectArgs) -> Result<()> {
         InspectFormat::Json => report::inspect::render_json(&report),
         InspectFormat::Html => report::html::inspect(&report),
     };
-    output::write("-", &text)?;
-    Ok(())
+    outputs.write(vec![(out, text)])
 }
 
 /// Runs a parsed command line; returns the exit code.
@@ -740,11 +754,13 @@ pub fn run(cli: Cli) -> Result<u8> {
 }
 
 impl AuditOptions {
-    /// The input files of an audit that no output may replace (the log, the policy).
+    /// The input files of an audit that no output may replace (the log, the policy, the value
+    /// network).
     fn inputs<'a>(&'a self, log: &'a LogArgs) -> Vec<&'a str> {
         let mut inputs = vec![log.log.as_str()];
         inputs.extend(log.more_logs.iter().map(String::as_str));
         inputs.extend(self.policy.as_deref());
+        inputs.extend(self.value_net.as_deref());
         inputs
     }
 }

@@ -218,7 +218,12 @@ pub fn run(
             fitted_folds: critic.map(|c| c.folds()),
             fitted_features: critic.map(|c| c.features()),
         },
-        warnings: reader.warnings().clone(),
+        warnings: {
+            let mut w = reader.warnings().clone();
+            let hint = crate::critic::net::no_bootstrap_hint(schema, "audit with");
+            w.amend(crate::critic::net::NO_BOOTSTRAP, &hint);
+            w
+        },
         policy: None,
     })
 }

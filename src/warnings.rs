@@ -50,6 +50,22 @@ impl Warnings {
         }
     }
 
+    /// Appends `more` to the message of the finding `code`, when it was counted: for advice
+    /// that depends on the command reporting it (the reader that counts it cannot know).
+    pub fn amend(&mut self, code: &str, more: &str) {
+        if let Some(w) = self.items.get_mut(code) {
+            w.message.push_str(more);
+        }
+    }
+
+    /// Replaces `from` by `to` in the message of the finding `code`, when it was counted: for
+    /// a command that reuses another's pass but gives other advice (shard files).
+    pub fn reword(&mut self, code: &str, from: &str, to: &str) {
+        if let Some(w) = self.items.get_mut(code) {
+            w.message = w.message.replace(from, to);
+        }
+    }
+
     /// Drops a finding that a later stage made moot.
     pub fn remove(&mut self, code: &str) {
         self.items.remove(code);

@@ -118,6 +118,31 @@ pub fn span(cols: &[String]) -> String {
     }
 }
 
+/// The code of the reader's warning about truncated ends without a bootstrap value.
+pub const NO_BOOTSTRAP: &str = "truncated_without_bootstrap";
+
+/// What the `truncated_without_bootstrap` warning adds when the run has no critic of its own:
+/// the two options that give every truncated end a bootstrap value, `--value-net` (which needs
+/// obs columns) and `--fit-value`. `how` says how to pass them (`"pass"` in an audit, `"audit
+/// with"` in inspect).
+pub fn no_bootstrap_hint(schema: &Schema, how: &str) -> String {
+    if schema.obs.is_empty() {
+        return format!(
+            "; to bootstrap truncated episodes, {how} --fit-value (a cross-fitted ridge fit of \
+             V; on time alone, as the log has no obs columns; reads the log twice), or add obs \
+             columns for --value-net FILE"
+        );
+    }
+    let at = match next_obs_headers(schema).as_slice() {
+        [] => "its last logged observation, as the log has no next-observation columns".into(),
+        cols => format!("the logged next observation ({})", span(cols)),
+    };
+    format!(
+        "; to bootstrap truncated episodes, {how} --value-net FILE (a value network's V at \
+         {at}) or --fit-value (a cross-fitted ridge fit of V on obs and time; reads the log twice)"
+    )
+}
+
 /// Where a log's truncated episodes take their bootstrap state, in words (inspect).
 pub fn bootstrap_state(schema: &Schema) -> String {
     match next_obs_headers(schema).as_slice() {

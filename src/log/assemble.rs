@@ -150,17 +150,17 @@ impl Assembler {
         let l = &self.shape.layout;
         let w = l.score_dim + l.obs_dim + l.act_dim + l.logged.len();
         // Each step holds its vector fields, up to four scalars and its line number (the next
-        // observation is kept for the last row only, and not counted per step).
+        // observation is kept for the last row only: it is counted once per episode, below).
         let step_bytes = 8 * (w as u64 + 5);
         let w = w + l.next_obs_dim;
         let open_count = self.open.len();
         let open = self.open.get_mut(key).expect("opened above");
         check_step(self.shape.step_col, open, row, loc)?;
         open.last_step = row.step;
-        // A new episode also holds its id, its entry in the table of open ones and its
-        // vectors' headers.
+        // A new episode also holds its id, its entry in the table of open ones, its vectors'
+        // headers and its next observation.
         let fixed = if open.episode.rewards.is_empty() {
-            OPEN_BYTES + key.len() as u64
+            episode_bytes(key, l.next_obs_dim)
         } else {
             0
         };
@@ -172,8 +172,12 @@ impl Assembler {
                 .set(
                     self.held.next_multiple_of(CHARGE_STEP),
                     || {
+                        let next = match l.next_obs_dim {
+                            0 => String::new(),
+                            n => format!(", each with its next observation of {n} values"),
+                        };
                         format!(
-                            "open episodes ({open_count} open; '{}' has {} steps so far)",
+                            "open episodes ({open_count} open{next}; '{}' has {} steps so far)",
                             fields::shown(ep.id.as_bytes()),
                             ep.rewards.len() + 1
                         )
@@ -206,7 +210,8 @@ impl Assembler {
             }
         };
         let done = self.open.remove(key).expect("open above").episode;
-        self.held -= step_bytes * done.len() as u64 + OPEN_BYTES + key.len() as u64;
+        let next_obs_dim = self.shape.layout.next_obs_dim;
+        self.held -= step_bytes * done.len() as u64 + episode_bytes(key, next_obs_dim);
         if self.held + 2 * CHARGE_STEP < self.open_charge.bytes() {
             self.open_charge
                 .force(self.held.next_multiple_of(CHARGE_STEP));
@@ -397,6 +402,12 @@ const CHARGE_STEP: u64 = 64 << 10;
 /// Bytes an open episode holds besides its steps: its entry in the table of open episodes
 /// and the headers of its vectors (its id's bytes are added).
 const OPEN_BYTES: u64 = (std::mem::size_of::<Open>() + std::mem::size_of::<Vec<u8>>() + 16) as u64;
+
+/// Bytes an open episode of id `key` holds besides its steps: [`OPEN_BYTES`], its id, and its
+/// next observation (`next_obs_dim` values, replaced at each row, so held once).
+fn episode_bytes(key: &[u8], next_obs_dim: usize) -> u64 {
+    OPEN_BYTES + key.len() as u64 + 8 * next_obs_dim as u64
+}
 
 /// Appends a row's values (`v`: its scores, obs, act, next obs and logged columns) to its
 /// episode; the next observation replaces the previous row's.

@@ -64,9 +64,9 @@ impl Role {
             Role::Terminated => &["terminated", "terminals", "terminations"],
             Role::Truncated => &["truncated", "timeouts", "truncations"],
             Role::Done => &["done", "dones"],
-            Role::Episode => &["episode"],
+            Role::Episode => &["episode", "episode_id"],
             Role::Step => &["step"],
-            Role::Reward => &["reward"],
+            Role::Reward => &["reward", "rewards"],
             Role::Value => &["value"],
             Role::NextValue => &["next_value"],
             Role::Q => &["q"],
@@ -75,6 +75,14 @@ impl Role {
     }
 
     pub fn required(self) -> bool {
+        matches!(self, Role::Episode | Role::Reward)
+    }
+
+    /// Roles whose default headers are read only when exactly one of them is in the log: a
+    /// log with both `reward` and `rewards` (or `episode` and `episode_id`) may mean either,
+    /// and reading the wrong one would give a plausible, wrong audit. (The end flags keep
+    /// their order of preference.)
+    fn one_candidate(self) -> bool {
         matches!(self, Role::Episode | Role::Reward)
     }
 
@@ -736,12 +744,23 @@ fn resolve_roles(spec: &ColumnSpec, headers: &[String], file: &str) -> Result<Ro
             found[i] = Found::Option;
             continue;
         }
-        let hit = role
+        // Default headers present and not named for another role with --col.
+        let hits: Vec<(usize, usize)> = role
             .defaults()
             .iter()
             .enumerate()
-            .find_map(|(k, name)| headers.iter().position(|h| h == name).map(|p| (k, p)));
-        if let Some((k, p)) = hit {
+            .filter(|(_, name)| {
+                !Role::ALL
+                    .iter()
+                    .any(|&o| spec.explicit[o.index()] && spec.header(o) == **name)
+            })
+            .filter_map(|(k, name)| headers.iter().position(|h| h == name).map(|p| (k, p)))
+            .collect();
+        let ids_derived = role == Role::Episode && spec.env.is_some();
+        if role.one_candidate() && hits.len() > 1 && !ids_derived {
+            return Err(two_candidates(role, &hits, headers, file));
+        }
+        if let Some(&(k, p)) = hits.first() {
             roles[i] = Some(p);
             found[i] = if k == 0 {
                 Found::Default
@@ -798,6 +817,32 @@ fn resolve_roles(spec: &ColumnSpec, headers: &[String], file: &str) -> Result<Ro
         }
     }
     Ok((roles, found, note))
+}
+
+/// A log with two default headers for one role (`reward` and `rewards`): which to read is
+/// the user's call.
+fn two_candidates(role: Role, hits: &[(usize, usize)], headers: &[String], file: &str) -> Error {
+    let named: Vec<String> = hits
+        .iter()
+        .map(|&(_, p)| format!("'{}' (column {})", headers[p], p + 1))
+        .collect();
+    let options: Vec<String> = hits
+        .iter()
+        .map(|&(_, p)| format!("--col {}={}", role.key(), headers[p]))
+        .collect();
+    Error::input_hint(
+        Position {
+            file: file.to_string(),
+            line: Some(1),
+            column: None,
+        },
+        format!(
+            "the log has {} for role {}: either could be it, so neither is read by default",
+            named.join(" and "),
+            role.key()
+        ),
+        format!("name the one to read: {}", options.join(" or ")),
+    )
 }
 
 /// The column named `wanted` (for `role`), or an error with the nearest header suggested.
@@ -931,14 +976,75 @@ mod tests {
         assert_eq!(s.scores, vec![4, 3, 2]);
     }
 
+    // `rewards` became a default header of the reward role, so the near miss is `rewrd`.
     #[test]
     fn missing_reward_suggests_near_header() {
-        let e = Schema::resolve(&ColumnSpec::default(), hs(&["episode", "rewards"]), "f.csv")
+        let e = Schema::resolve(&ColumnSpec::default(), hs(&["episode", "rewrd"]), "f.csv")
             .unwrap_err()
             .to_string();
         assert!(e.contains("'reward'"), "{e}");
-        assert!(e.contains("did you mean 'rewards'"), "{e}");
-        assert!(e.contains("--col reward=rewards"), "{e}");
+        assert!(e.contains("did you mean 'rewrd'"), "{e}");
+        assert!(e.contains("--col reward=rewrd"), "{e}");
+    }
+
+    #[test]
+    fn rewards_and_episode_id_are_read_when_they_are_the_only_candidates() {
+        let s = Schema::resolve(
+            &ColumnSpec::default(),
+            hs(&["episode_id", "step", "rewards"]),
+            "f.csv",
+        )
+        .unwrap();
+        assert_eq!(s.column(Role::Episode), Some(0));
+        assert_eq!(s.column(Role::Reward), Some(2));
+        let reward = s
+            .assignments()
+            .into_iter()
+            .find(|a| a.role == "reward")
+            .unwrap();
+        assert_eq!(reward.found, Some(Found::Synonym));
+        // The key wins nothing: with both, neither is read.
+        let e = Schema::resolve(
+            &ColumnSpec::default(),
+            hs(&["episode", "reward", "rewards"]),
+            "f.csv",
+        )
+        .unwrap_err()
+        .to_string();
+        assert!(
+            e.contains("'reward' (column 2) and 'rewards' (column 3) for role reward")
+                && e.contains("--col reward=reward or --col reward=rewards"),
+            "{e}"
+        );
+        let e = Schema::resolve(
+            &ColumnSpec::default(),
+            hs(&["episode_id", "episode", "reward"]),
+            "f.csv",
+        )
+        .unwrap_err()
+        .to_string();
+        assert!(
+            e.contains("'episode' (column 2) and 'episode_id' (column 1) for role episode"),
+            "{e}"
+        );
+        // Naming one resolves it; so does giving the other to another role, or --env-col.
+        let mut spec = ColumnSpec::default();
+        spec.remap("reward=rewards").unwrap();
+        let s = Schema::resolve(&spec, hs(&["episode", "reward", "rewards"]), "f").unwrap();
+        assert_eq!(s.column(Role::Reward), Some(2));
+        let mut spec = ColumnSpec::default();
+        spec.remap("value=rewards").unwrap();
+        let s = Schema::resolve(&spec, hs(&["episode", "reward", "rewards"]), "f").unwrap();
+        assert_eq!(
+            (s.column(Role::Reward), s.column(Role::Value)),
+            (Some(1), Some(2))
+        );
+        let spec = ColumnSpec {
+            env: Some("env".into()),
+            ..ColumnSpec::default()
+        };
+        let h = hs(&["env", "episode", "episode_id", "reward", "done"]);
+        assert!(Schema::resolve(&spec, h, "f").is_ok());
     }
 
     #[test]

@@ -8,7 +8,7 @@
 //! in network order (trunk layers first to last, weight before bias, then the head: mean,
 //! log sigma; or the logits), whatever order the list gives.
 
-use super::activation::Activation;
+use super::activation::{Activation, NAMES};
 use super::description::Ctx;
 use super::heads::{Head, Sigma};
 use super::network::{Dense, Mlp, Network, Normalizer, Param};
@@ -59,8 +59,10 @@ fn default_eps() -> f64 {
 #[derive(Debug, Deserialize)]
 #[serde(deny_unknown_fields)]
 struct NormWire {
-    mean: String,
-    var: String,
+    #[serde(default)]
+    mean: Option<String>,
+    #[serde(default)]
+    var: Option<String>,
     #[serde(default = "default_eps")]
     eps: f64,
     #[serde(default)]
@@ -70,10 +72,14 @@ struct NormWire {
 #[derive(Debug, Deserialize)]
 #[serde(deny_unknown_fields)]
 struct LayerWire {
-    weight: String,
+    /// Required, like `activation`; both optional here so that a missing one is named with
+    /// its layer (serde's own message gives only a position).
+    #[serde(default)]
+    weight: Option<String>,
     #[serde(default)]
     bias: Option<String>,
-    activation: String,
+    #[serde(default)]
+    activation: Option<String>,
     #[serde(default)]
     alpha: Option<f64>,
     #[serde(default)]
@@ -83,7 +89,9 @@ struct LayerWire {
 #[derive(Debug, Deserialize)]
 #[serde(deny_unknown_fields)]
 struct DenseWire {
-    weight: String,
+    /// Required; optional here so that a missing one is named with its layer.
+    #[serde(default)]
+    weight: Option<String>,
     #[serde(default)]
     bias: Option<String>,
     /// Only for a log sigma layer: clip its output to [lo, hi].
@@ -176,30 +184,43 @@ impl Builder<'_> {
                 .ctx
                 .bad("\"normalize\": \"clip\" must be finite and positive"));
         }
+        let missing = |field: &str, what: &str| {
+            self.ctx.bad(format!(
+                "\"normalize\" has no \"{field}\" (the tensor name of the {what}, [n_obs])"
+            ))
+        };
+        let mean_name = n
+            .mean
+            .as_deref()
+            .ok_or_else(|| missing("mean", "running mean"))?;
+        let var_name = n
+            .var
+            .as_deref()
+            .ok_or_else(|| missing("var", "running variance"))?;
         let mean = self
             .tensors
-            .get(&n.mean, Want::Vector(n_in), "the normalisation mean")?;
+            .get(mean_name, Want::Vector(n_in), "the normalisation mean")?;
         let var = self
             .tensors
-            .get(&n.var, Want::Vector(n_in), "the normalisation variance")?;
+            .get(var_name, Want::Vector(n_in), "the normalisation variance")?;
         if let Some(k) = var
             .value
             .iter()
             .position(|&v| (v + n.eps).partial_cmp(&0.0) != Some(std::cmp::Ordering::Greater))
         {
             return Err(self.ctx.bad(format!(
-                "normalisation variance '{}' entry {k} is {}: var + eps must be positive",
-                n.var,
+                "normalisation variance '{var_name}' entry {k} is {}: var + eps must be positive",
                 var.value[[0, k]]
             )));
         }
-        self.stats = vec![n.mean.clone(), n.var.clone()];
+        let names = (mean_name.to_string(), var_name.to_string());
+        self.stats = vec![names.0.clone(), names.1.clone()];
         Ok(Normalizer {
             mean: mean.value.row(0).to_owned(),
             inv_std: var.value.row(0).mapv(|v| 1.0 / (v + n.eps).sqrt()),
             eps: n.eps,
             clip: n.clip,
-            names: (n.mean.clone(), n.var.clone()),
+            names,
         })
     }
 
@@ -212,14 +233,56 @@ impl Builder<'_> {
         let mut width = n_in;
         for (i, l) in w.layers.iter().enumerate() {
             let role = format!("layer {}", i + 1);
-            let act = Activation::parse(&l.activation, l.alpha, l.negative_slope)
+            let (weight, activation) = required_layer_fields(&self.ctx, l, i, w.layers.len())?;
+            let act = Activation::parse(activation, l.alpha, l.negative_slope)
                 .map_err(|e| self.ctx.bad(format!("{role}: {e}")))?;
-            let d = self.dense(&l.weight, l.bias.as_deref(), width, None, act, &role)?;
+            let d = self.dense(weight, l.bias.as_deref(), width, None, act, &role)?;
             width = d.n_out;
             layers.push(d);
         }
         Ok((norm, layers))
     }
+}
+
+/// A trunk layer's `weight` and `activation`, or an error naming the file, the layer (its
+/// index, and its tensor names when it has some) and the missing field.
+fn required_layer_fields<'l>(
+    ctx: &Ctx,
+    l: &'l LayerWire,
+    i: usize,
+    n: usize,
+) -> Result<(&'l str, &'l str)> {
+    let named = match (&l.weight, &l.bias) {
+        (Some(w), _) => format!(" (\"weight\": \"{w}\")"),
+        (None, Some(b)) => format!(" (\"bias\": \"{b}\")"),
+        (None, None) => String::new(),
+    };
+    let layer = format!("\"layers\" entry {} of {n}{named}", i + 1);
+    let weight = l.weight.as_deref().ok_or_else(|| {
+        ctx.bad(format!(
+            "{layer} has no \"weight\" (the name of its [out, in] weight tensor)"
+        ))
+    })?;
+    let activation = l.activation.as_deref().ok_or_else(|| {
+        ctx.bad(format!(
+            "{layer} has no \"activation\"; every layer names one of: {NAMES} (\"identity\" \
+             for a layer without one)"
+        ))
+    })?;
+    Ok((weight, activation))
+}
+
+/// A head layer's `weight`, or an error naming the layer.
+fn required_weight<'d>(b: &Builder, d: &'d DenseWire, role: &str) -> Result<&'d str> {
+    d.weight.as_deref().ok_or_else(|| {
+        let named = d
+            .bias
+            .as_ref()
+            .map_or(String::new(), |b| format!(" (\"bias\": \"{b}\")"));
+        b.ctx.bad(format!(
+            "{role} of the head{named} has no \"weight\" (the name of its [out, in] weight tensor)"
+        ))
+    })
 }
 
 /// The trunk's output width.
@@ -239,8 +302,9 @@ fn head_dense(
             "{role}: \"clip\" applies only to a log sigma layer"
         )));
     }
+    let weight = required_weight(b, d, role)?;
     b.dense(
-        &d.weight,
+        weight,
         d.bias.as_deref(),
         n_in,
         n_out,
@@ -291,7 +355,8 @@ fn sigma_layer(b: &mut Builder, d: &DenseWire, h: usize, m: usize) -> Result<Sig
     };
     let role = "the log sigma layer";
     let bias = d.bias.as_deref();
-    let layer = b.dense(&d.weight, bias, h, Some(m), Activation::Identity, role)?;
+    let weight = required_weight(b, d, role)?;
+    let layer = b.dense(weight, bias, h, Some(m), Activation::Identity, role)?;
     Ok(Sigma::Layer { layer, clip })
 }
 
@@ -415,9 +480,45 @@ fn start<'a>(ctx: Ctx<'a>, w: &Wire) -> Result<(Builder<'a>, Vec<usize>)> {
     ))
 }
 
+/// Parses the description strictly (serde's message keeps its line); when the error is one
+/// of a `layers` entry's own (an unknown field, a wrong type), the entry is named too.
+fn parse_wire(ctx: &Ctx, text: &str) -> Result<Wire> {
+    ctx.parse(text).map_err(|mut err| {
+        if let (Some(label), crate::error::Error::Input(e)) = (bad_layer(text), &mut err)
+            && e.message.contains(&label.1)
+        {
+            e.message = e.message.replacen(
+                "invalid policy file: ",
+                &format!("invalid policy file: {}: ", label.0),
+                1,
+            );
+        }
+        err
+    })
+}
+
+/// The first `layers` entry that does not read as a layer on its own, and serde's message
+/// for it (without a position), when the file is JSON with a `layers` list.
+fn bad_layer(text: &str) -> Option<(String, String)> {
+    let v: serde_json::Value = serde_json::from_str(text).ok()?;
+    let layers = v.get("layers")?.as_array()?;
+    layers.iter().enumerate().find_map(|(i, l)| {
+        serde_json::from_value::<LayerWire>(l.clone())
+            .err()
+            .map(|e| {
+                let named = l
+                    .get("weight")
+                    .and_then(|w| w.as_str())
+                    .map_or(String::new(), |w| format!(" (\"weight\": \"{w}\")"));
+                let label = format!("\"layers\" entry {} of {}{named}", i + 1, layers.len());
+                (label, e.to_string())
+            })
+    })
+}
+
 /// Parses an `mlp` actor description.
 pub fn build(ctx: Ctx, text: &str) -> Result<Built> {
-    let w: Wire = ctx.parse(text)?;
+    let w = parse_wire(&ctx, text)?;
     let hw = w
         .head
         .as_ref()
@@ -468,7 +569,7 @@ impl ValueNet {
                 "a value network's family is 'mlp_value', not '{family}'"
             )));
         }
-        let w: Wire = ctx.parse(text)?;
+        let w = parse_wire(&ctx, text)?;
         if w.head.is_some() || w.theta.is_some() || w.actions.is_some() || w.action.is_some() {
             return Err(ctx.bad(
                 "an mlp_value network has no head, theta or actions: its last layer is the value",

@@ -149,6 +149,15 @@ fn facts(r: &AuditReport) -> String {
         let _ = write!(s, " {}.", esc(&sentence(&line)).trim_end_matches('.'));
     }
     s.push_str("</p>\n");
+    if let Some(v) = &i.value_net {
+        let line = format!(
+            "Value network {} explains {} of the return variance; {}",
+            v.file,
+            super::table::value_net_share(v),
+            v.note
+        );
+        let _ = writeln!(s, "<p class=\"facts\">{}</p>", esc(&sentence(&line)));
+    }
     if let Some(sk) = &i.sketch {
         let _ = writeln!(s, "<p class=\"facts\">{}</p>", esc(&sentence(&sk.note)));
     }
@@ -347,16 +356,17 @@ fn audit_sections(r: &AuditReport) -> String {
 /// `audit --format html`.
 pub fn audit(r: &AuditReport) -> String {
     let mut body = format!(
-        "<header>\n<p class=\"kicker\">gradaudit audit of <code>{}</code></p>\n\
+        "<header>\n<p class=\"kicker\">gradaudit {}</p>\n\
          <h1 id=\"verdict\">{}</h1>\n{}</header>\n",
-        esc(&r.input.file),
+        super::table::subject(&r.input, |f| format!("<code>{}</code>", esc(f))),
         esc(&sentence(&r.verdict.text)),
         facts(r)
     );
     body.push_str(&warnings(&r.warnings));
     body.push_str(&audit_sections(r));
     body.push_str(&footer(r.tool.schema));
-    page(&format!("gradaudit audit of {}", r.input.file), &body)
+    let title = super::table::subject(&r.input, str::to_string);
+    page(&format!("gradaudit {title}"), &body)
 }
 
 /// The sweep's headline: the recommendation and whether the log separates the settings.

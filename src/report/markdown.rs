@@ -2,13 +2,26 @@
 
 use super::AuditReport;
 use super::columns::COLUMNS;
-use super::table::{cell_text, preamble};
+use super::table::{cell_text, critic_line, preamble, value_net_share};
 
 pub fn render(r: &AuditReport) -> String {
     let pre = preamble(r);
     let mut out = format!("### {}\n\n", pre[0]);
     for line in &pre[1..] {
         out.push_str(&format!("- {}\n", line.trim()));
+    }
+    // The critic's quality (recorded or --fit-value) and the --value-net line, as the
+    // terminal and HTML reports give them.
+    if let Some(line) = critic_line(&r.input.critic) {
+        out.push_str(&format!("- {line}\n"));
+    }
+    if let Some(v) = &r.input.value_net {
+        out.push_str(&format!(
+            "- value network `{}`: explains {} of the return variance; {}\n",
+            v.file.replace('`', "'"),
+            value_net_share(v),
+            v.note
+        ));
     }
     out.push('\n');
     if let Some(sk) = &r.input.sketch {

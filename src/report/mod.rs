@@ -100,6 +100,18 @@ pub struct InputSummary {
     pub critic: crate::critic::CriticQuality,
     /// The value network behind V(s_t), with --value-net.
     pub value_net: Option<crate::critic::net::ValueNetSummary>,
+    /// For a `merge`: the shard files added up, in the order given (empty for an audit). Named
+    /// in the reports' titles, not in the JSON, which stays the audit's (a merge equals the
+    /// Poisson audit of the whole log; `.input.file` lists the logs).
+    #[serde(skip)]
+    pub shards: Vec<MergedShard>,
+}
+
+/// One shard of a merged report: its file and the log it was written from.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct MergedShard {
+    pub shard: String,
+    pub log: String,
 }
 
 impl InputSummary {

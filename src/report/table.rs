@@ -37,7 +37,7 @@ pub fn preamble(r: &AuditReport) -> Vec<String> {
     let i = &r.input;
     let s = &r.settings;
     vec![
-        format!("gradaudit audit of {}", i.file),
+        format!("gradaudit {}", subject(i, str::to_string)),
         format!(
             "  {} episodes, {} steps ({} terminated, {} truncated), score dimension {} (from {})",
             i.episodes, i.steps, i.terminated, i.truncated, i.score_dim, i.scores_from
@@ -57,6 +57,37 @@ pub fn preamble(r: &AuditReport) -> Vec<String> {
             s.target_snr
         ),
     ]
+}
+
+/// What a report is of, after "gradaudit ": `audit of LOG`, or for a merge `merge of N
+/// shards (A, B) of LOGS`; `name` formats each file name (plain text, or HTML code).
+pub fn subject(i: &super::InputSummary, name: impl Fn(&str) -> String) -> String {
+    if i.shards.is_empty() {
+        return format!("audit of {}", name(&i.file));
+    }
+    let shards: Vec<String> = i.shards.iter().map(|s| name(&s.shard)).collect();
+    let mut logs: Vec<String> = Vec::new();
+    for s in &i.shards {
+        let log = name(&s.log);
+        if !logs.contains(&log) {
+            logs.push(log);
+        }
+    }
+    let n = shards.len();
+    format!(
+        "merge of {n} shard{} ({}) of {}",
+        if n == 1 { "" } else { "s" },
+        few(&shards),
+        few(&logs)
+    )
+}
+
+/// Up to three names in full; more as the first and the last.
+fn few(names: &[String]) -> String {
+    match names {
+        [a, _, _, _, ..] => format!("{a} .. {}", names[names.len() - 1]),
+        _ => names.join(", "),
+    }
 }
 
 pub fn render(r: &AuditReport) -> String {
@@ -143,9 +174,7 @@ pub fn render_with(r: &AuditReport, wide: bool) -> String {
             &format!(
                 "value network {} (explains {} of the return variance): {}",
                 v.file,
-                v.explained_variance
-                    .filter(|x| x.is_finite())
-                    .map_or("an undefined share".to_string(), |x| format!("{x:.3}")),
+                value_net_share(v),
                 v.note
             ),
             WIDTH,
@@ -208,6 +237,14 @@ pub fn render_with(r: &AuditReport, wide: bool) -> String {
 }
 
 /// One line on the critics' quality, when there is a critic.
+/// The share of the return variance a value network explains (`--value-net`), three
+/// decimals, or "an undefined share": the same figure in every format.
+pub fn value_net_share(v: &crate::critic::net::ValueNetSummary) -> String {
+    v.explained_variance
+        .filter(|x| x.is_finite())
+        .map_or("an undefined share".to_string(), |x| format!("{x:.3}"))
+}
+
 pub fn critic_line(c: &crate::critic::CriticQuality) -> Option<String> {
     // An explained variance of -inf (a critic whose errors overflowed) is undefined too.
     let ev = |x: Option<f64>| {

@@ -6,7 +6,7 @@
 use super::{Rebuilt, Shard, ShardSettings};
 use crate::audit::streamed::Partial;
 use crate::error::{Error, Result};
-use crate::report::AuditReport;
+use crate::report::{AuditReport, MergedShard};
 
 /// One shard to merge and the name it is known by in messages (its path).
 pub struct MergeInput {
@@ -62,6 +62,13 @@ pub fn merge(inputs: Vec<MergeInput>) -> Result<(ShardSettings, Partial)> {
             }
         }
     }
+    let shards: Vec<MergedShard> = inputs
+        .iter()
+        .map(|i| MergedShard {
+            shard: i.name.clone(),
+            log: i.shard.partial.input.file.clone(),
+        })
+        .collect();
     let mut iter = inputs.into_iter();
     let mut total = iter.next().expect("checked non-empty").shard.partial;
     let mut files = vec![total.input.file.clone()];
@@ -81,6 +88,7 @@ pub fn merge(inputs: Vec<MergeInput>) -> Result<(ShardSettings, Partial)> {
     }
     total.hashes.sort_unstable();
     total.input.file = files.join(" + ");
+    total.input.shards = shards;
     Ok((settings, total))
 }
 

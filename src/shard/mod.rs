@@ -501,8 +501,14 @@ pub fn write_shard(reader: crate::log::LogReader, cfg: &AuditConfig) -> Result<S
         ..cfg.clone()
     };
     let recorded_values = reader.schema().has(crate::log::Role::Value);
+    // The pass advises --value-net / --fit-value for truncated ends without a bootstrap
+    // value; a shard cannot take them, so the advice is to audit the whole log with them.
+    let advice = ["pass", "audit the whole log with"]
+        .map(|how| crate::critic::net::no_bootstrap_hint(reader.schema(), how));
     let prep = crate::audit::prepare(&reader, &cfg)?;
-    let partial = crate::audit::streamed::accumulate(reader, &prep, &cfg)?;
+    let mut partial = crate::audit::streamed::accumulate(reader, &prep, &cfg)?;
+    let code = crate::critic::net::NO_BOOTSTRAP;
+    partial.warnings.reword(code, &advice[0], &advice[1]);
     Ok(Shard {
         settings: ShardSettings::of(&prep, &cfg, recorded_values),
         partial,

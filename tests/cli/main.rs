@@ -15,6 +15,7 @@ mod hardening_ledger;
 mod hardening_numeric;
 mod hardening_reader;
 mod inspect;
+mod leftovers;
 mod network;
 mod next_obs;
 mod policy;

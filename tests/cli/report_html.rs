@@ -24,7 +24,7 @@ fn page(args: &[&str]) -> String {
     out
 }
 
-fn parse(html: &str) -> roxmltree::Document<'_> {
+pub(crate) fn parse(html: &str) -> roxmltree::Document<'_> {
     let opts = roxmltree::ParsingOptions {
         allow_dtd: true,
         ..Default::default()
@@ -32,19 +32,19 @@ fn parse(html: &str) -> roxmltree::Document<'_> {
     roxmltree::Document::parse_with_options(html, opts).expect("the page is well-formed")
 }
 
-fn by_id<'a, 'i>(doc: &'a roxmltree::Document<'i>, id: &str) -> roxmltree::Node<'a, 'i> {
+pub(crate) fn by_id<'a, 'i>(doc: &'a roxmltree::Document<'i>, id: &str) -> roxmltree::Node<'a, 'i> {
     doc.descendants()
         .find(|n| n.attribute("id") == Some(id))
         .unwrap_or_else(|| panic!("no element #{id}"))
 }
 
-fn has_class(n: &roxmltree::Node, class: &str) -> bool {
+pub(crate) fn has_class(n: &roxmltree::Node, class: &str) -> bool {
     n.attribute("class")
         .is_some_and(|c| c.split_whitespace().any(|w| w == class))
 }
 
 /// The rows of a table's body.
-fn body_rows<'a, 'i>(table: roxmltree::Node<'a, 'i>) -> Vec<roxmltree::Node<'a, 'i>> {
+pub(crate) fn body_rows<'a, 'i>(table: roxmltree::Node<'a, 'i>) -> Vec<roxmltree::Node<'a, 'i>> {
     table
         .descendants()
         .filter(|n| n.has_tag_name("tbody"))
@@ -54,7 +54,7 @@ fn body_rows<'a, 'i>(table: roxmltree::Node<'a, 'i>) -> Vec<roxmltree::Node<'a, 
 
 /// Nothing in the page points outside it: no URL, no element or attribute that loads anything,
 /// no CSS import or external url(); fragment references (#id) only.
-fn assert_self_contained(html: &str, doc: &roxmltree::Document) {
+pub(crate) fn assert_self_contained(html: &str, doc: &roxmltree::Document) {
     let lower = html.to_lowercase();
     for needle in ["http:", "https:", "ftp:", "//cdn", "@import", "file:"] {
         assert!(!lower.contains(needle), "the page contains {needle:?}");
@@ -92,7 +92,7 @@ fn assert_self_contained(html: &str, doc: &roxmltree::Document) {
 }
 
 /// The headline is one sentence: a full stop at its end and none inside followed by a space.
-fn assert_one_sentence(doc: &roxmltree::Document) {
+pub(crate) fn assert_one_sentence(doc: &roxmltree::Document) {
     let h1: String = by_id(doc, "verdict")
         .descendants()
         .filter_map(|n| n.text())
@@ -106,7 +106,7 @@ fn assert_one_sentence(doc: &roxmltree::Document) {
 }
 
 /// Every figure carries its "how to read this" beside it.
-fn assert_howto_beside_figures(doc: &roxmltree::Document) {
+pub(crate) fn assert_howto_beside_figures(doc: &roxmltree::Document) {
     for fig in doc.descendants().filter(|n| n.has_tag_name("figure")) {
         let row = fig.parent().expect("a figure sits in a row");
         let aside = row
@@ -130,7 +130,7 @@ fn assert_mentions(doc: &roxmltree::Document, needles: &[&str]) {
 }
 
 /// The rows an audit table shows: one per estimator, td / gae:0 / nstep:1 on one row.
-fn expected_audit_rows(json: &serde_json::Value) -> usize {
+pub(crate) fn expected_audit_rows(json: &serde_json::Value) -> usize {
     let names = crate::util::strings(&json["estimators"], "name");
     let identical = names
         .iter()

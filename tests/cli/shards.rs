@@ -196,7 +196,7 @@ fn merge_renders_every_audit_format_and_the_plot() {
     let files = shards(&dir, &parts, &[]);
     let plot = dir.path("merged.svg").to_string_lossy().into_owned();
     for (format, marker) in [
-        ("table", "gradaudit audit of"),
+        ("table", "gradaudit merge of 2 shards"),
         ("markdown", "|"),
         ("csv", "estimator,"),
     ] {
