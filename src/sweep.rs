@@ -321,16 +321,51 @@ pub fn run(reader: LogReader, cfg: &SweepConfig) -> Result<SweepReport> {
         .enumerate()
         .map(|(i, g)| EstimatorRow::new(g.label.clone(), false, stats[i + 1].clone(), &refs))
         .collect();
+    let points = grid_points(cfg, rows, &plan, &replicates, data.contrib.view())?;
+    let choice = choose(&points, cfg.over);
+    Ok(SweepReport {
+        tool: Tool::with_schema("gradaudit.sweep/1"),
+        input: data.input,
+        settings: SweepSettings {
+            over: cfg.over,
+            family: match cfg.over {
+                Over::Lambda => "gae".into(),
+                Over::Nstep => "nstep".into(),
+                Over::Gamma => cfg.family.to_string(),
+            },
+            gamma: cfg.audit.gamma,
+            reference: cfg.audit.reference.to_string(),
+            resamples: cfg.audit.resamples,
+            seed: cfg.audit.seed,
+            confidence: cfg.audit.confidence,
+            target_snr: cfg.audit.target_snr,
+        },
+        signal: refs.signal,
+        points,
+        choice,
+        warnings,
+    })
+}
+
+/// The grid's points from their rows, with each point's MSE standard error and interval
+/// (sweep/mse.rs); entry i + 1 of the plan is grid point i.
+fn grid_points(
+    cfg: &SweepConfig,
+    rows: Vec<EstimatorRow>,
+    plan: &Plan,
+    replicates: &ndarray::Array2<f64>,
+    contrib: ndarray::ArrayView2<f64>,
+) -> Result<Vec<SweepPoint>> {
     let draws: Vec<Option<crate::stats::mse::Draws>> = rows
         .iter()
         .enumerate()
         .map(|(i, row)| {
             row.mse?;
-            mse::draws(&plan, i + 1, &replicates, data.contrib.view())
+            mse::draws(plan, i + 1, replicates, contrib)
         })
         .collect();
-    let spreads = mse::spreads(&draws, data.contrib.view(), cfg)?;
-    let points: Vec<SweepPoint> = cfg
+    let spreads = mse::spreads(&draws, contrib, cfg)?;
+    Ok(cfg
         .grid
         .iter()
         .zip(rows)
@@ -356,30 +391,7 @@ pub fn run(reader: LogReader, cfg: &SweepConfig) -> Result<SweepReport> {
                 .filter(|n| !n.starts_with("cosine_half"))
                 .collect(),
         })
-        .collect();
-    let choice = choose(&points, cfg.over);
-    Ok(SweepReport {
-        tool: Tool::with_schema("gradaudit.sweep/1"),
-        input: data.input,
-        settings: SweepSettings {
-            over: cfg.over,
-            family: match cfg.over {
-                Over::Lambda => "gae".into(),
-                Over::Nstep => "nstep".into(),
-                Over::Gamma => cfg.family.to_string(),
-            },
-            gamma: cfg.audit.gamma,
-            reference: cfg.audit.reference.to_string(),
-            resamples: cfg.audit.resamples,
-            seed: cfg.audit.seed,
-            confidence: cfg.audit.confidence,
-            target_snr: cfg.audit.target_snr,
-        },
-        signal: refs.signal,
-        points,
-        choice,
-        warnings,
-    })
+        .collect())
 }
 
 /// Whether a grid point sits where its parameter ends (lambda or gamma 0 or 1, n = 1 or full).

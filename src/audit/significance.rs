@@ -120,18 +120,24 @@ pub fn interval(
         )
     };
     let estimate = at(&total.iter().map(|x| x / n as f64).collect::<Vec<_>>());
-    let jack: Vec<f64> = contrib
-        .outer_iter()
-        .map(|row| {
-            let loo: Vec<f64> = total
-                .iter()
-                .zip(row)
-                .map(|(t, x)| (t - x) / (n as f64 - 1.0))
-                .collect();
-            at(&loo)
-        })
-        .collect();
+    let jack: Vec<f64> = leave_one_out(contrib, &total).map(|m| at(&m)).collect();
     noise::interval(reps, estimate, &jack, cfg.confidence)
+}
+
+/// The mean row of the episodes with episode i left out, for each i in order (the episode
+/// jackknife), from the column sums `total`.
+fn leave_one_out<'a>(
+    contrib: ndarray::ArrayView2<'a, f64>,
+    total: &'a [f64],
+) -> impl Iterator<Item = Vec<f64>> + 'a {
+    let count = contrib.nrows() as f64 - 1.0;
+    contrib.into_outer_iter().map(move |row| {
+        total
+            .iter()
+            .zip(row)
+            .map(|(t, x)| (t - x) / count)
+            .collect()
+    })
 }
 
 /// The replicates' weighted means of the columns `cols` (a B x cols.len() matrix), with the
@@ -206,17 +212,7 @@ pub fn interval_draws(
     };
     let total: Vec<f64> = contrib.sum_axis(ndarray::Axis(0)).to_vec();
     let whole = at(&total.iter().map(|x| x / n as f64).collect::<Vec<_>>());
-    let jack: Vec<Parts> = contrib
-        .outer_iter()
-        .map(|row| {
-            let loo: Vec<f64> = total
-                .iter()
-                .zip(row)
-                .map(|(t, x)| (t - x) / (n as f64 - 1.0))
-                .collect();
-            at(&loo)
-        })
-        .collect();
+    let jack: Vec<Parts> = leave_one_out(contrib, &total).map(|m| at(&m)).collect();
     Some([Figure::Mse, Figure::BiasSq].map(|f| Draws::new(f, &whole, &reps, &jack)))
 }
 
