@@ -632,7 +632,18 @@ pub struct Resampler<'a> {
     pub splits: usize,
 }
 
-impl Resampler<'_> {
+impl<'a> Resampler<'a> {
+    /// The resampler of an audit's contribution rows, with the run's seed, resamples and splits.
+    pub fn of(plan: &'a Plan, contrib: ndarray::ArrayView2<'a, f64>, cfg: &AuditConfig) -> Self {
+        Resampler {
+            plan,
+            contrib,
+            seed: cfg.seed,
+            resamples: cfg.resamples,
+            splits: cfg.splits,
+        }
+    }
+
     fn gradients<W>(&self, k: usize, rows: usize, weights: W) -> (Array2<f64>, usize)
     where
         W: Fn(usize, &mut [f64]) + Sync,
@@ -679,13 +690,7 @@ pub fn statistics(
         .mean_axis(ndarray::Axis(0))
         .expect("collect() guarantees n >= 2")
         .to_vec();
-    let source = Resampler {
-        plan,
-        contrib: contrib.view(),
-        seed: cfg.seed,
-        resamples: cfg.resamples,
-        splits: cfg.splits,
-    };
+    let source = Resampler::of(plan, contrib.view(), cfg);
     let scfg = StatsConfig {
         episodes: contrib.nrows(),
         confidence: cfg.confidence,
@@ -852,13 +857,7 @@ fn mse_intervals(report: &mut AuditReport, data: &Collected, prep: &Prepared, cf
             .iter()
             .any(|r| &r.name == name && r.mse.is_some())
     };
-    let source = Resampler {
-        plan,
-        contrib: data.contrib.view(),
-        seed: cfg.seed,
-        resamples: cfg.resamples,
-        splits: cfg.splits,
-    };
+    let source = Resampler::of(plan, data.contrib.view(), cfg);
     let (gr, _) = stats::ReplicateGradients::bootstrap(&source, prep.reference);
     // Two draws per estimator (mse, then bias_sq), all through one pass of the counts.
     let draws: Vec<_> = (0..plan.estimators.len())

@@ -91,13 +91,7 @@ pub fn interval(
     let contrib = data.contrib.view();
     let n = contrib.nrows();
     let start = plan.moment_start()?;
-    let source = Resampler {
-        plan,
-        contrib,
-        seed: cfg.seed,
-        resamples: cfg.resamples,
-        splits: cfg.splits,
-    };
+    let source = Resampler::of(plan, contrib, cfg);
     let (gk, _) = source.bootstrap(k);
     let (gr, _) = source.bootstrap(reference);
     let cols = [start + 2 * k, start + 2 * reference];
@@ -185,13 +179,7 @@ pub fn interval_draws(
     plan.moments(k, &vec![0.0; plan.width()])?;
     let contrib = data.contrib.view();
     let n = contrib.nrows();
-    let source = Resampler {
-        plan,
-        contrib,
-        seed: cfg.seed,
-        resamples: cfg.resamples,
-        splits: cfg.splits,
-    };
+    let source = Resampler::of(plan, contrib, cfg);
     let (gk, _) = source.bootstrap(k);
     let cols = [start + 2 * k, start + 2 * k + 1];
     let moments = resampled_columns(contrib, &cols, cfg);
