@@ -643,6 +643,16 @@ fn ids_1_and_01_in_any_order_give_identical_output() {
     assert_eq!(a.estimators, b.estimators);
 }
 
+/// A log of the scalar LQ problem at k = -0.1, sigma 0.5, 6 steps (testkit::Lq).
+fn lq_log(n: usize, critic_scale: f64, seed: u64) -> String {
+    let lq = crate::testkit::Lq {
+        k: -0.1,
+        sigma: 0.5,
+        h: 6,
+    };
+    lq.log(n, critic_scale, seed)
+}
+
 // The gate's mse end is the larger of two upper bounds (gate::pessimistic): bias_sq's upper
 // end plus the point variance, and the row's mse interval's upper end; snr's low end divides
 // the signal's low end by it; bias_sq's end is the larger of its percentile and its
@@ -651,12 +661,7 @@ fn ids_1_and_01_in_any_order_give_identical_output() {
 #[test]
 fn gate_mse_end_is_the_larger_of_its_two_bounds() {
     use crate::gate::{Stat, pessimistic};
-    let lq = crate::testkit::Lq {
-        k: -0.1,
-        sigma: 0.5,
-        h: 6,
-    };
-    let text = lq.log(300, 0.0, 3);
+    let text = lq_log(300, 0.0, 3);
     let plain = audit_text(&text, &cfg("rtg,total,rtg_discounted", 0.5));
     assert!(
         plain
@@ -710,12 +715,7 @@ fn gate_mse_end_is_the_larger_of_its_two_bounds() {
 // min(1, 2 p_(1)) and max of that and p_(2).
 #[test]
 fn one_estimator_under_three_names_is_one_test() {
-    let lq = crate::testkit::Lq {
-        k: -0.1,
-        sigma: 0.5,
-        h: 6,
-    };
-    let text = lq.log(200, 0.5, 4);
+    let text = lq_log(200, 0.5, 4);
     let report = audit_text(&text, &cfg("rtg,td,gae:0,nstep:1,total", 0.99));
     assert_eq!(report.significance.tested, 4);
     assert_eq!(report.significance.distinct_tests, 2);
